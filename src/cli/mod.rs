@@ -1,0 +1,29 @@
+//! The command line. Each command lives in its own file with its own clap `Args`.
+
+use clap::{Parser, Subcommand};
+
+#[derive(Parser, Debug)]
+#[command(
+    name = "cairn",
+    version,
+    about = "Find and verify transition states with real quantum-chemistry engines"
+)]
+pub struct Cli {
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+#[derive(Subcommand, Debug)]
+pub enum Command {}
+
+/// Parse arguments, run, and return the process exit status.
+pub fn main() -> i32 {
+    let cli = match Cli::try_parse() {
+        Ok(c) => c,
+        Err(e) => {
+            let _ = e.print();
+            return if e.use_stderr() { 2 } else { 0 };
+        }
+    };
+    match cli.command {}
+}

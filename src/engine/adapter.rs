@@ -1,0 +1,1 @@
+//! Adapters as data (filled in by the engine work).

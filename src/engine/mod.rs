@@ -1,0 +1,127 @@
+//! Engines: what turns a geometry into an energy, gradient or Hessian.
+//!
+//! Two kinds implement [`Engine`]: external programs described by adapter files
+//! (`adapters/*.yaml`, see [`adapter`]) and built-in model surfaces ([`model`]).
+//! An engine evaluation is synchronous and blocking; executors run many of them side by side.
+
+pub mod adapter;
+pub mod model;
+pub mod process;
+
+use crate::elements::Element;
+use crate::eval::{Answer, Quantity};
+use nalgebra::DVector;
+use std::path::PathBuf;
+
+/// One evaluation to run.
+#[derive(Debug, Clone)]
+pub struct Job {
+    pub elements: Vec<Element>,
+    /// Flat coordinates, 3N, bohr (surface units for model surfaces).
+    pub coords: DVector<f64>,
+    pub charge: i32,
+    pub multiplicity: u32,
+    pub quantity: Quantity,
+    /// Threads the engine may use.
+    pub threads: usize,
+}
+
+/// Why an engine run failed. `kind` drives retries; `output` points at the kept engine output.
+#[derive(Debug, Clone, thiserror::Error)]
+#[error("{kind}: {message}")]
+pub struct EngineFailure {
+    pub kind: FailureKind,
+    pub message: String,
+    /// Where the engine's raw output was kept, if anywhere.
+    pub output: Option<PathBuf>,
+}
+
+/// Classes of engine failure.
+#[derive(Debug, Clone, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum FailureKind {
+    /// The executable is not installed / not on PATH: not worth retrying.
+    MissingExecutable,
+    /// Killed after its time limit.
+    Timeout,
+    /// Exited by a signal or with a non-zero status and no usable output.
+    Crash,
+    /// A failure signature of the adapter matched (its name).
+    Signature(String),
+    /// Output missing, truncated or not finite.
+    BadOutput,
+    /// The request itself is impossible (e.g. charge/multiplicity), not worth retrying.
+    BadInput,
+}
+
+impl std::fmt::Display for FailureKind {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            FailureKind::MissingExecutable => f.write_str("executable not found"),
+            FailureKind::Timeout => f.write_str("timed out"),
+            FailureKind::Crash => f.write_str("crashed"),
+            FailureKind::Signature(s) => write!(f, "failure signature '{s}'"),
+            FailureKind::BadOutput => f.write_str("bad output"),
+            FailureKind::BadInput => f.write_str("bad input"),
+        }
+    }
+}
+
+/// A successful evaluation, with the record of how it was obtained.
+#[derive(Debug, Clone)]
+pub struct Outcome {
+    pub answer: Answer,
+    /// Raw engine output (stdout/stderr and files read), kept with the result for the record.
+    pub raw_output: String,
+    /// Remedies applied before success (empty on a first-try success).
+    pub remedies: Vec<String>,
+    /// Wall seconds the engine ran.
+    pub seconds: f64,
+}
+
+/// Anything that evaluates energies, gradients and Hessians.
+pub trait Engine: Send + Sync {
+    /// Short name, e.g. "xtb" or "muller-brown".
+    fn name(&self) -> &str;
+    /// Everything that changes results (adapter name and version, its settings), as a canonical
+    /// string: goes into the content-addressed store key.
+    fn identity(&self) -> String;
+    /// True for model surfaces (coordinates are surface units, no rigid-body projection).
+    fn is_model(&self) -> bool {
+        false
+    }
+    /// Run one evaluation. `attempt` counts from 0; adapters apply their remedies in order for
+    /// attempts ≥ 1.
+    fn evaluate(&self, job: &Job, attempt: usize) -> Result<Outcome, EngineFailure>;
+}
+
+/// The built-in Müller–Brown surface as an engine.
+#[derive(Debug, Default, Clone)]
+pub struct MullerBrown;
+
+impl Engine for MullerBrown {
+    fn name(&self) -> &str {
+        "muller-brown"
+    }
+    fn identity(&self) -> String {
+        "model:muller-brown:v1".into()
+    }
+    fn is_model(&self) -> bool {
+        true
+    }
+    fn evaluate(&self, job: &Job, _attempt: usize) -> Result<Outcome, EngineFailure> {
+        if job.elements.len() != 1 || !job.elements[0].is_pseudo() {
+            return Err(EngineFailure {
+                kind: FailureKind::BadInput,
+                message: "the muller-brown surface takes one pseudo-atom X (x, y = surface coordinates)".into(),
+                output: None,
+            });
+        }
+        Ok(Outcome {
+            answer: model::muller_brown_answer(&job.coords, job.quantity),
+            raw_output: String::new(),
+            remedies: vec![],
+            seconds: 0.0,
+        })
+    }
+}

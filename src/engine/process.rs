@@ -1,0 +1,1 @@
+//! Spawning engine processes (filled in by the engine work).

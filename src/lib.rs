@@ -1,0 +1,15 @@
+//! Cairn: find and verify transition states of many reactions with real quantum-chemistry
+//! engines. See DEVELOPERS.md for the architecture.
+
+pub mod algo;
+pub mod cli;
+pub mod elements;
+pub mod engine;
+pub mod error;
+pub mod eval;
+pub mod geom;
+pub mod molecule;
+pub mod units;
+pub mod xyz;
+
+pub use error::{Error, Result};

@@ -125,3 +125,29 @@ impl Engine for MullerBrown {
         })
     }
 }
+
+/// Settings of a level of theory: key → value (e.g. `method: gfn2`), as given in the study file
+/// or on the command line (`--set key=value`).
+pub type Settings = std::collections::BTreeMap<String, String>;
+
+/// Find an engine by name: built-in model surfaces first, then adapter files.
+///
+/// Adapter files are looked up in, in order: the directories in `CAIRN_ADAPTERS` (colon
+/// separated), `./adapters`, and the `adapters/` directory shipped next to the executable's
+/// source tree (compiled in as a fallback).
+pub fn find_engine(
+    name: &str,
+    settings: &Settings,
+) -> crate::Result<std::sync::Arc<dyn Engine>> {
+    match name {
+        "muller-brown" => {
+            if let Some(k) = settings.keys().next() {
+                return Err(crate::Error::invalid(format!(
+                    "engine 'muller-brown' has no settings, but '{k}' was given"
+                )));
+            }
+            Ok(std::sync::Arc::new(MullerBrown))
+        }
+        _ => adapter::load_engine(name, settings),
+    }
+}

@@ -43,7 +43,9 @@ pub fn parse_frames(text: &str, name: &str) -> Result<Vec<Molecule>> {
             return Err(Error::parse(
                 name,
                 i + 1,
-                format!("file ends after the atom count {n}: the comment line and atoms are missing"),
+                format!(
+                    "file ends after the atom count {n}: the comment line and atoms are missing"
+                ),
             ));
         }
         let comment = lines[i + 1].trim_end().to_string();
@@ -176,8 +178,12 @@ pub fn write_atomic(path: &Path, text: &str) -> Result<()> {
         .unwrap_or(Path::new("."));
     std::fs::create_dir_all(dir)
         .map_err(|e| Error::io(format!("cannot create directory {}", dir.display()), e))?;
-    let mut tmp = tempfile::NamedTempFile::new_in(dir)
-        .map_err(|e| Error::io(format!("cannot create a temporary file in {}", dir.display()), e))?;
+    let mut tmp = tempfile::NamedTempFile::new_in(dir).map_err(|e| {
+        Error::io(
+            format!("cannot create a temporary file in {}", dir.display()),
+            e,
+        )
+    })?;
     tmp.write_all(text.as_bytes())
         .and_then(|_| tmp.as_file().sync_all())
         .map_err(|e| Error::io(format!("cannot write {}", path.display()), e))?;
@@ -195,7 +201,8 @@ pub fn write(path: &Path, m: &Molecule) -> Result<()> {
 mod tests {
     use super::*;
 
-    const WATER: &str = "3\nwater, r(OH) 0.9572\nO 0 0 0\nH 0.75695033 0 0.58588228\nH -0.75695033 0 0.58588228\n";
+    const WATER: &str =
+        "3\nwater, r(OH) 0.9572\nO 0 0 0\nH 0.75695033 0 0.58588228\nH -0.75695033 0 0.58588228\n";
 
     #[test]
     fn reads_and_round_trips() {
@@ -231,9 +238,21 @@ mod tests {
     #[test]
     fn errors_name_line_and_problem() {
         let cases = [
-            ("4\nc\nO 0 0 0\nH 1 0 0\nH 0 1 0\n", ":6:", "only 3 atom lines"),
-            ("3\nc\nO 0 0 0\nH 1 zero 0\nH 0 1 0\n", ":4:", "bad y coordinate 'zero'"),
-            ("3\nc\nO 0 0 0\nQq 1 0 0\nH 0 1 0\n", ":4:", "unknown element 'Qq'"),
+            (
+                "4\nc\nO 0 0 0\nH 1 0 0\nH 0 1 0\n",
+                ":6:",
+                "only 3 atom lines",
+            ),
+            (
+                "3\nc\nO 0 0 0\nH 1 zero 0\nH 0 1 0\n",
+                ":4:",
+                "bad y coordinate 'zero'",
+            ),
+            (
+                "3\nc\nO 0 0 0\nQq 1 0 0\nH 0 1 0\n",
+                ":4:",
+                "unknown element 'Qq'",
+            ),
             ("three\nc\n", ":1:", "expected the number of atoms"),
             ("", ":1:", "empty"),
             ("2\nc\nO 0 0 0\nH 1 0\n", ":4:", "fewer than 3"),

@@ -113,7 +113,9 @@ impl Engine for MullerBrown {
         if job.elements.len() != 1 || !job.elements[0].is_pseudo() {
             return Err(EngineFailure {
                 kind: FailureKind::BadInput,
-                message: "the muller-brown surface takes one pseudo-atom X (x, y = surface coordinates)".into(),
+                message:
+                    "the muller-brown surface takes one pseudo-atom X (x, y = surface coordinates)"
+                        .into(),
                 output: None,
             });
         }
@@ -135,10 +137,7 @@ pub type Settings = std::collections::BTreeMap<String, String>;
 /// Adapter files are looked up in, in order: the directories in `CAIRN_ADAPTERS` (colon
 /// separated), `./adapters`, and the `adapters/` directory shipped next to the executable's
 /// source tree (compiled in as a fallback).
-pub fn find_engine(
-    name: &str,
-    settings: &Settings,
-) -> crate::Result<std::sync::Arc<dyn Engine>> {
+pub fn find_engine(name: &str, settings: &Settings) -> crate::Result<std::sync::Arc<dyn Engine>> {
     match name {
         "muller-brown" => {
             if let Some(k) = settings.keys().next() {

@@ -6,6 +6,12 @@
 //! in parallel) or a verdict ([`Step::Done`]). No I/O and no async happen inside an algorithm,
 //! so every algorithm can be tested on analytic surfaces and replayed from the store.
 
+pub mod common;
+pub mod freq;
+pub mod hessian;
+pub mod minimize;
+pub mod saddle;
+
 use crate::eval::{Answer, Point};
 
 /// What an algorithm answers with.

@@ -9,6 +9,7 @@ pub mod error;
 pub mod eval;
 pub mod geom;
 pub mod molecule;
+pub mod path;
 pub mod units;
 pub mod xyz;
 

@@ -2,6 +2,8 @@
 
 use clap::{Parser, Subcommand};
 
+pub mod engines;
+
 #[derive(Parser, Debug)]
 #[command(
     name = "cairn",
@@ -14,7 +16,10 @@ pub struct Cli {
 }
 
 #[derive(Subcommand, Debug)]
-pub enum Command {}
+pub enum Command {
+    /// List the engines: adapter files found, their executables, built-in model surfaces.
+    Engines(engines::Args),
+}
 
 /// Parse arguments, run, and return the process exit status.
 pub fn main() -> i32 {
@@ -25,5 +30,7 @@ pub fn main() -> i32 {
             return if e.use_stderr() { 2 } else { 0 };
         }
     };
-    match cli.command {}
+    match cli.command {
+        Command::Engines(a) => engines::run(&a),
+    }
 }

@@ -5,6 +5,7 @@
 //! An engine evaluation is synchronous and blocking; executors run many of them side by side.
 
 pub mod adapter;
+pub mod extract;
 pub mod model;
 pub mod process;
 
@@ -131,6 +132,9 @@ impl Engine for MullerBrown {
 /// Settings of a level of theory: key → value (e.g. `method: gfn2`), as given in the study file
 /// or on the command line (`--set key=value`).
 pub type Settings = std::collections::BTreeMap<String, String>;
+
+/// Names of the built-in model surfaces [`find_engine`] knows.
+pub const MODEL_SURFACES: &[&str] = &["muller-brown"];
 
 /// Find an engine by name: built-in model surfaces first, then adapter files.
 ///

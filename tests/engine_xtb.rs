@@ -6,11 +6,8 @@
 
 mod engine_support;
 
-use cairn::engine::adapter::{Adapter, AdapterEngine};
-use cairn::engine::{Engine, FailureKind, Settings};
 use cairn::eval::Quantity;
 use engine_support::*;
-use std::sync::Arc;
 
 // Geometries (Å) built by hand, deliberately away from minima so that gradients are not small.
 const H2O: &[(&str, [f64; 3])] = &[

@@ -159,6 +159,11 @@ fn irc_from_each_saddle_ends_in_the_minima_it_joins() {
             );
             assert!(br.reached_minimum, "{}", br.reason);
             assert!(d < 0.01, "{s:?}: branch ends {d} from {m}");
+            // After the final minimisation the end is the published minimum (§1.1).
+            let min = br.minimum.as_ref().unwrap();
+            assert!(min.converged, "{}", min.reason);
+            let (m2, d2) = nearest_minimum(&min.x);
+            assert!(m2 == m && d2 < 1e-3, "{s:?}: minimised end {d2} from {m2}");
             got.push((m, br.arc_length()));
             // energy falls monotonically from the saddle
             let mut prev = r.saddle_energy;
@@ -188,11 +193,11 @@ fn irc_with_updated_hessians_keeps_connectivity() {
         ..IrcOptions::surface()
     };
     for (s, ends) in [(S1, ["MA", "MC"]), (S2, ["MB", "MC"])] {
-        let r = irc_from(s, opts);
+        let r = irc_from(s, opts.clone());
         assert_eq!(r.hessian_evaluations, 1);
         let mut got: Vec<&str> = [&r.forward, &r.reverse]
             .iter()
-            .map(|b| nearest_minimum(&b.end().unwrap().x).0)
+            .map(|b| nearest_minimum(b.end_geometry().unwrap()).0)
             .collect();
         got.sort();
         assert_eq!(
@@ -201,4 +206,83 @@ fn irc_with_updated_hessians_keeps_connectivity() {
             r.forward.reason, r.reverse.reason
         );
     }
+}
+
+use cairn::algo::saddle::{FollowMode, SaddleOptions, SaddleSearch};
+use cairn::path::coords::Coord;
+use cairn::path::scan::{Scan, ScanAxis, ScanOptions};
+
+#[test]
+fn relaxed_scan_of_y_from_mc_to_mb_peaks_at_s2_and_refines_to_it() {
+    // Drive y from MC (0.467) down to MB (0.028) while x relaxes. At S2, H_xx = 198.97 > 0 and
+    // H_yy − H_xy²/H_xx < 0 (reference-values.md §1.1 Hessian elements), so the relaxed profile
+    // E(y) = min_x V has its maximum at S2.
+    let axis = ScanAxis::range(Coord::Cartesian(0, 1), 0.47, 0.03, 45);
+    let mut scan = Scan::new(
+        pt(MC.0, MC.1),
+        Frame::Surface,
+        vec![axis],
+        ScanOptions::surface(),
+    )
+    .unwrap();
+    let (v, n) = run_sync(
+        &mut scan,
+        |p| muller_brown_answer(&p.coords, p.quantity),
+        100_000,
+    )
+    .unwrap();
+    assert!(v.all_converged);
+    assert_eq!(v.gradient_evaluations, n);
+    assert_eq!(v.points.len(), 45);
+    for p in &v.points {
+        assert!((p.reached[0] - p.target[0]).abs() < 1e-4);
+    }
+    let g = v.saddle_guess.expect(&v.guess_note);
+    let top = &v.points[g].x;
+    eprintln!(
+        "scan maximum at ({:.4}, {:.4}), E {:.3}; {n} gradients",
+        top[0], top[1], v.points[g].energy
+    );
+    // grid spacing 0.01 in y
+    assert!(
+        dist(top, S2) < 0.02,
+        "scan maximum at ({}, {})",
+        top[0],
+        top[1]
+    );
+    // Refined (P-RFO following the scanned coordinate) it is the published S2.
+    let mode = v.guess_mode.clone().unwrap();
+    let opts = SaddleOptions {
+        follow: FollowMode::Vector(mode),
+        ..SaddleOptions::for_surface()
+    };
+    let mut s = SaddleSearch::new(top.clone(), Frame::Surface, opts);
+    let (sv, _) = run_sync(&mut s, |p| muller_brown_answer(&p.coords, p.quantity), 1000).unwrap();
+    assert!(sv.converged && sv.n_negative == 1, "{}", sv.reason);
+    assert!(dist(&sv.x, S2) < 1e-4);
+}
+
+#[test]
+fn grid_scan_finds_a_discrete_saddle_near_s2() {
+    // Both surface coordinates driven: an unrelaxed 2-D grid around S2 (0.2125, 0.2930).
+    let ax = ScanAxis::range(Coord::Cartesian(0, 0), 0.0, 0.4, 9);
+    let ay = ScanAxis::range(Coord::Cartesian(0, 1), 0.1, 0.5, 9);
+    let mut scan = Scan::new(
+        pt(0.0, 0.1),
+        Frame::Surface,
+        vec![ax, ay],
+        ScanOptions::surface(),
+    )
+    .unwrap();
+    let (v, _) = run_sync(
+        &mut scan,
+        |p| muller_brown_answer(&p.coords, p.quantity),
+        100_000,
+    )
+    .unwrap();
+    assert_eq!(v.points.len(), 81);
+    let g = v.saddle_guess.expect(&v.guess_note);
+    let x = &v.points[g].x;
+    // grid spacing 0.05
+    assert!(dist(x, S2) < 0.075, "grid saddle at ({}, {})", x[0], x[1]);
 }

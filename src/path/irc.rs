@@ -14,8 +14,11 @@
 //! dropped), when the largest Cartesian gradient component falls below `gtol`, when the
 //! quadratic model's minimum is closer than one step (the last step goes there), or at its step
 //! budget. Arc lengths are in amu^½ bohr (surface units on a model surface, unit masses).
+//! Each end is then minimised ([`crate::algo::minimize::Minimizer`], both ends in one batch)
+//! unless `minimize_ends` is off.
 
 use super::max_abs;
+use crate::algo::minimize::{MinOptions, MinVerdict, Minimizer};
 use crate::algo::{AlgoError, Algorithm, Step};
 use crate::eval::{Answer, Point, Quantity};
 use crate::geom::{self, Frame};
@@ -23,7 +26,7 @@ use nalgebra::{DMatrix, DVector};
 use serde::{Deserialize, Serialize};
 
 /// Settings of the IRC.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct IrcOptions {
     /// Arc length per step, amu^½ bohr.
     pub step: f64,
@@ -33,6 +36,9 @@ pub struct IrcOptions {
     pub hessian_every: usize,
     /// Stop a branch when the largest Cartesian gradient component is below this, Eh/bohr.
     pub gtol: f64,
+    /// Minimise each end after the path stops (default true).
+    pub minimize_ends: bool,
+    pub min: MinOptions,
 }
 
 impl IrcOptions {
@@ -42,6 +48,8 @@ impl IrcOptions {
             max_steps: 150,
             hessian_every: 0,
             gtol: 5e-4,
+            minimize_ends: true,
+            min: MinOptions::default(),
         }
     }
     /// Model surfaces: analytic Hessians are cheap, so recompute them at every step.
@@ -51,6 +59,8 @@ impl IrcOptions {
             max_steps: 1000,
             hessian_every: 1,
             gtol: 0.05,
+            minimize_ends: true,
+            min: MinOptions::for_surface(),
         }
     }
     pub fn for_frame(frame: Frame) -> Self {
@@ -81,12 +91,32 @@ pub struct IrcBranch {
     pub reason: String,
     /// False when the branch only ran out of steps.
     pub reached_minimum: bool,
+    /// The end after the final minimisation (None when it was not asked for).
+    pub minimum: Option<EndMinimum>,
+}
+
+/// The minimised end of a branch.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct EndMinimum {
+    pub x: DVector<f64>,
+    pub energy: f64,
+    pub converged: bool,
+    pub reason: String,
+    /// Mass-weighted distance from the last path point, amu^½ bohr.
+    pub distance: f64,
 }
 
 impl IrcBranch {
     /// The last point (the end of the branch before any final minimisation).
     pub fn end(&self) -> Option<&IrcPoint> {
         self.points.last()
+    }
+    /// The end geometry: the minimised one when there is one, else the last path point.
+    pub fn end_geometry(&self) -> Option<&DVector<f64>> {
+        self.minimum
+            .as_ref()
+            .map(|m| &m.x)
+            .or_else(|| self.points.last().map(|p| &p.x))
     }
     /// Arc length from the saddle to the end, amu^½ bohr.
     pub fn arc_length(&self) -> f64 {
@@ -133,7 +163,17 @@ enum Phase {
     Start,
     Saddle,
     Running,
+    Minimizing,
     Done,
+}
+
+/// A final minimisation of one branch end.
+#[derive(Debug, Clone)]
+struct EndMin {
+    branch: usize,
+    algo: Minimizer,
+    asked: usize,
+    verdict: Option<MinVerdict>,
 }
 
 /// IRC from a saddle, both directions, as an ask/tell algorithm.
@@ -154,6 +194,7 @@ pub struct Irc {
     hessians: usize,
     /// Per request: (branch, wants Hessian too).
     asked: Vec<(usize, bool)>,
+    mins: Vec<EndMin>,
 }
 
 /// (e^{−λt} − 1)/λ, with its limit −t for λt → 0.
@@ -301,6 +342,7 @@ impl Irc {
             grads: 0,
             hessians: 0,
             asked: Vec::new(),
+            mins: Vec::new(),
         })
     }
 
@@ -345,13 +387,101 @@ impl Irc {
             }
         }
         if pts.is_empty() {
-            self.phase = Phase::Done;
-            return Step::Done(self.verdict());
+            return self.start_minimizing();
         }
         Step::Evaluate(pts)
     }
 
+    fn start_minimizing(&mut self) -> Step<IrcResult> {
+        if !self.opts.minimize_ends {
+            self.phase = Phase::Done;
+            return Step::Done(self.verdict());
+        }
+        self.mins = self
+            .branches
+            .iter()
+            .enumerate()
+            .map(|(b, br)| {
+                let x = br
+                    .points
+                    .last()
+                    .map_or_else(|| self.x0.clone(), |p| p.x.clone());
+                EndMin {
+                    branch: b,
+                    algo: Minimizer::new(x, self.frame, self.opts.min.clone()),
+                    asked: 0,
+                    verdict: None,
+                }
+            })
+            .collect();
+        self.phase = Phase::Minimizing;
+        match self.step_minimizers(Vec::new()) {
+            Ok(s) => s,
+            Err(e) => {
+                // Cannot happen on the first call (no answers); keep the path regardless.
+                self.phase = Phase::Done;
+                let mut v = self.verdict();
+                v.forward
+                    .reason
+                    .push_str(&format!("; final minimisation failed: {}", e.0));
+                Step::Done(v)
+            }
+        }
+    }
+
+    /// Hand each running minimiser its share of the answers; gather their next requests.
+    fn step_minimizers(&mut self, answers: Vec<Answer>) -> Result<Step<IrcResult>, AlgoError> {
+        let expected: usize = self.mins.iter().map(|m| m.asked).sum();
+        if answers.len() != expected {
+            return Err(AlgoError(format!(
+                "IRC end minimisation: expected {expected} answers, got {}",
+                answers.len()
+            )));
+        }
+        let mut it = answers.into_iter();
+        let mut pts = Vec::new();
+        for m in self.mins.iter_mut() {
+            if m.verdict.is_some() {
+                continue;
+            }
+            let mine: Vec<Answer> = it.by_ref().take(m.asked).collect();
+            self.grads += mine.len();
+            let name = if m.branch == 0 { "forward" } else { "reverse" };
+            match m
+                .algo
+                .step(mine)
+                .map_err(|e| AlgoError(format!("IRC {name} end minimisation: {}", e.0)))?
+            {
+                Step::Evaluate(p) => {
+                    m.asked = p.len();
+                    pts.extend(p);
+                }
+                Step::Done(v) => {
+                    m.asked = 0;
+                    m.verdict = Some(v);
+                }
+            }
+        }
+        if pts.is_empty() {
+            self.phase = Phase::Done;
+            return Ok(Step::Done(self.verdict()));
+        }
+        Ok(Step::Evaluate(pts))
+    }
+
     fn verdict(&self) -> IrcResult {
+        let minimum = |k: usize| {
+            let m = self.mins.iter().find(|m| m.branch == k)?;
+            let v = m.verdict.as_ref()?;
+            let last = self.branches[k].points.last().map_or(&self.x0, |p| &p.x);
+            Some(EndMinimum {
+                x: v.x.clone(),
+                energy: v.energy,
+                converged: v.converged,
+                reason: v.reason.clone(),
+                distance: (&v.x - last).component_mul(&self.sqrt_m).norm(),
+            })
+        };
         let branch = |b: &Branch| IrcBranch {
             points: b.points.clone(),
             reason: b
@@ -360,14 +490,19 @@ impl Irc {
                 .map(|s| s.0.clone())
                 .unwrap_or_else(|| "not finished".into()),
             reached_minimum: b.stopped.as_ref().is_some_and(|s| s.1),
+            minimum: None,
         };
+        let mut forward = branch(&self.branches[0]);
+        forward.minimum = minimum(0);
+        let mut reverse = branch(&self.branches[1]);
+        reverse.minimum = minimum(1);
         IrcResult {
             saddle: self.x0.clone(),
             saddle_energy: self.e0,
             saddle_eigenvalue: self.eig0,
             transition_vector: self.v0.clone(),
-            forward: branch(&self.branches[0]),
-            reverse: branch(&self.branches[1]),
+            forward,
+            reverse,
             gradient_evaluations: self.grads,
             hessian_evaluations: self.hessians,
         }
@@ -375,7 +510,7 @@ impl Irc {
 
     /// Take the answer for branch b's pending point; decide to stop or plan the next step.
     fn advance(&mut self, b: usize, energy: f64, gx: DVector<f64>, hx: Option<DMatrix<f64>>) {
-        let opts = self.opts;
+        let opts = self.opts.clone();
         let Some((q_new, arc_new)) = self.branches[b].pending.take() else {
             return;
         };
@@ -560,6 +695,7 @@ impl Algorithm for Irc {
                 }
                 Ok(self.request())
             }
+            Phase::Minimizing => self.step_minimizers(answers),
             Phase::Done => Err(AlgoError("IRC: step called after the verdict".into())),
         }
     }

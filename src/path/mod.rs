@@ -7,12 +7,13 @@
 //! and defaults are listed in DEVELOPERS.md, section "Paths".
 
 pub mod align;
-// pub mod coords;
+pub mod coords;
 pub mod fire;
 pub mod graph;
 pub mod interp;
 pub mod irc;
 pub mod neb;
+pub mod scan;
 pub mod walk;
 
 use crate::algo::AlgoError;

@@ -407,7 +407,7 @@ impl Adapter {
         }
         for (k, s) in &f.settings {
             if let Err(m) = check_setting_value(k, s, &s.default.0) {
-                return Err((format!("{k}:"), format!("default of setting {m}")));
+                return Err((format!("{k}:\ndefault:"), format!("default of setting {m}")));
             }
         }
         for (i, r) in f.remedies.iter().enumerate() {
@@ -799,15 +799,26 @@ impl Adapter {
     }
 }
 
-/// Line (1-based) of the first line containing `needle`, or 0.
+/// Line (1-based) of a key for messages: `needle` is one or more fragments separated by `\n`;
+/// each is searched from the line where the previous one was found. 0 when not found.
 fn find_line(text: &str, needle: &str) -> usize {
-    if needle.trim().is_empty() {
-        return 0;
+    let lines: Vec<&str> = text.lines().collect();
+    let mut at = 0;
+    let mut found = false;
+    for part in needle.split('\n').map(str::trim).filter(|p| !p.is_empty()) {
+        match lines.iter().skip(at).position(|l| l.contains(part)) {
+            Some(i) => {
+                at += i;
+                found = true;
+            }
+            None => return 0,
+        }
     }
-    text.lines()
-        .position(|l| l.contains(needle.trim()))
-        .map(|i| i + 1)
-        .unwrap_or(0)
+    if found {
+        at + 1
+    } else {
+        0
+    }
 }
 
 fn describe(e: &minijinja::Error) -> String {

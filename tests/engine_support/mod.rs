@@ -164,3 +164,29 @@ pub fn tblite(j: &Job, method: &str, accuracy: f64) -> (f64, DVector<f64>) {
         .collect();
     (e, DVector::from_vec(g))
 }
+
+/// A variant of the shipped xtb adapter: its text with `(from, to)` replacements applied
+/// (each `from` must occur), loaded from a temporary directory. The directory is returned so it
+/// lives as long as the engine.
+pub fn xtb_variant(
+    replacements: &[(&str, &str)],
+    settings: &[(&str, &str)],
+) -> (Arc<dyn Engine>, tempfile::TempDir) {
+    use cairn::engine::adapter::{Adapter, AdapterEngine};
+    let shipped = concat!(env!("CARGO_MANIFEST_DIR"), "/adapters/xtb.yaml");
+    let mut text = std::fs::read_to_string(shipped).unwrap();
+    for (from, to) in replacements {
+        assert!(text.contains(from), "xtb.yaml no longer contains {from:?}");
+        text = text.replace(from, to);
+    }
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("xtb.yaml");
+    std::fs::write(&path, text).unwrap();
+    let a = Adapter::load(&path).unwrap_or_else(|e| panic!("variant adapter: {e}"));
+    let s: Settings = settings
+        .iter()
+        .map(|(k, v)| (k.to_string(), v.to_string()))
+        .collect();
+    let e = AdapterEngine::new(Arc::new(a), &s).unwrap();
+    (Arc::new(e), dir)
+}

@@ -38,7 +38,14 @@ const H3O_PLUS: &[(&str, [f64; 3])] = &[
 
 #[test]
 fn energies_and_gradients_match_tblite() {
-    let e = xtb(&[]);
+    // At accuracy 1 (xtb's default) the SCC is converged loosely: gradients agree to ~2e-6
+    // Eh/bohr; at 0.01 to ~2e-8, so there the check is ten times tighter than required.
+    tblite_comparison("1", 1e-5);
+    tblite_comparison("0.01", 1e-6);
+}
+
+fn tblite_comparison(acc: &str, gtol: f64) {
+    let e = xtb(&[("accuracy", acc)]);
     for (label, atoms, charge, mult) in [
         ("H2O", H2O, 0, 1),
         ("CH3OH", METHANOL, 0, 1),
@@ -47,12 +54,12 @@ fn energies_and_gradients_match_tblite() {
     ] {
         let j = job(atoms, charge, mult, Quantity::Gradient);
         let a = eval(e.as_ref(), &j);
-        // Reference: tblite GFN2-xTB, same accuracy (1.0) and electronic temperature (300 K).
-        let (e_ref, g_ref) = tblite(&j, "GFN2-xTB", 1.0);
+        // Reference: tblite GFN2-xTB, same accuracy and electronic temperature (300 K).
+        let (e_ref, g_ref) = tblite(&j, "GFN2-xTB", acc.parse().unwrap());
         let de = (a.energy - e_ref).abs();
         let dg = max_abs((a.gradient.unwrap() - &g_ref).iter().copied());
         eprintln!(
-            "{label}: E = {:.10} Eh, |dE| = {de:.2e} Eh, max |dg| = {dg:.2e} Eh/bohr",
+            "{label} (acc {acc}): E = {:.10} Eh, |dE| = {de:.2e} Eh, max |dg| = {dg:.2e} Eh/bohr",
             a.energy
         );
         assert!(
@@ -60,7 +67,7 @@ fn energies_and_gradients_match_tblite() {
             "{label}: energy differs from tblite by {de:e} Eh"
         );
         assert!(
-            dg <= 1e-5,
+            dg <= gtol,
             "{label}: gradient differs from tblite by {dg:e} Eh/bohr"
         );
         assert!(

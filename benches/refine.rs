@@ -67,6 +67,9 @@ fn row(case: &str, method: &str, out: Result<(bool, usize, usize, usize, String)
     }
 }
 
+/// Element symbols and positions (Å).
+type Atoms = Vec<(&'static str, [f64; 3])>;
+
 fn molecule(atoms: &[(&str, [f64; 3])]) -> (Vec<Element>, DVector<f64>) {
     let els = atoms
         .iter()
@@ -74,7 +77,9 @@ fn molecule(atoms: &[(&str, [f64; 3])]) -> (Vec<Element>, DVector<f64>) {
         .collect();
     let x = DVector::from_iterator(
         3 * atoms.len(),
-        atoms.iter().flat_map(|(_, c)| c.iter().map(|v| v * BOHR_PER_ANGSTROM)),
+        atoms
+            .iter()
+            .flat_map(|(_, c)| c.iter().map(|v| v * BOHR_PER_ANGSTROM)),
     );
     (els, x)
 }
@@ -94,12 +99,22 @@ fn main() {
     for (case, x, y) in mb_guesses {
         for (name, o) in variants(true) {
             let mut a = SaddleSearch::new(DVector::from_vec(vec![x, y, 0.0]), Frame::Surface, o);
-            let out = run_sync(&mut a, |p| muller_brown_answer(&p.coords, p.quantity), 10_000)
-                .map(|(v, _)| {
-                    let note = format!("E = {:.4} at ({:.4}, {:.4})", v.energy, v.x[0], v.x[1]);
-                    (v.converged, v.iterations, v.gradient_evaluations, v.hessian_evaluations, note)
-                })
-                .map_err(|e| e.0);
+            let out = run_sync(
+                &mut a,
+                |p| muller_brown_answer(&p.coords, p.quantity),
+                10_000,
+            )
+            .map(|(v, _)| {
+                let note = format!("E = {:.4} at ({:.4}, {:.4})", v.energy, v.x[0], v.x[1]);
+                (
+                    v.converged,
+                    v.iterations,
+                    v.gradient_evaluations,
+                    v.hessian_evaluations,
+                    note,
+                )
+            })
+            .map_err(|e| e.0);
             row(case, name, out);
         }
     }
@@ -114,7 +129,7 @@ fn main() {
         }
     };
     // Saddle guesses of our own (Å).
-    let cases: Vec<(&str, Vec<(&str, [f64; 3])>)> = vec![
+    let cases: Vec<(&str, Atoms)> = vec![
         (
             "xtb NH3 inversion",
             vec![

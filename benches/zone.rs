@@ -11,7 +11,10 @@ use cairn::engine::model::muller_brown_answer;
 use cairn::geom::Frame;
 use nalgebra::DVector;
 
-const SADDLES: [(f64, f64); 2] = [(-0.822_001_559, 0.624_312_803), (0.212_486_582, 0.292_988_325)];
+const SADDLES: [(f64, f64); 2] = [
+    (-0.822_001_559, 0.624_312_803),
+    (0.212_486_582, 0.292_988_325),
+];
 
 #[derive(Default)]
 struct Tally {
@@ -36,11 +39,16 @@ fn run(opts: &SaddleOptions, stride: usize) -> Tally {
                 Frame::Surface,
                 opts.clone(),
             );
-            match run_sync(&mut a, |p| muller_brown_answer(&p.coords, p.quantity), 10_000) {
+            match run_sync(
+                &mut a,
+                |p| muller_brown_answer(&p.coords, p.quantity),
+                10_000,
+            ) {
                 Ok((v, _)) => {
                     t.gradients += v.gradient_evaluations;
                     t.hessians += v.hessian_evaluations;
-                    let near = |s: &(f64, f64)| (v.x[0] - s.0).abs() < 1e-3 && (v.x[1] - s.1).abs() < 1e-3;
+                    let near =
+                        |s: &(f64, f64)| (v.x[0] - s.0).abs() < 1e-3 && (v.x[1] - s.1).abs() < 1e-3;
                     if v.converged && near(&SADDLES[0]) {
                         t.s1 += 1;
                     } else if v.converged && near(&SADDLES[1]) {
@@ -84,7 +92,10 @@ fn main() {
                 ..SaddleOptions::for_surface()
             },
         ),
-        ("P-RFO, Bofill updates (default)", SaddleOptions::for_surface()),
+        (
+            "P-RFO, Bofill updates (default)",
+            SaddleOptions::for_surface(),
+        ),
     ];
     println!(
         "Müller–Brown zone of convergence: {} starts (reference-values.md §1.3 grid{}), at most 100 steps",
@@ -93,7 +104,15 @@ fn main() {
     );
     println!(
         "{:<44} {:>7} {:>7} {:>8} {:>9} {:>8} {:>7} {:>10} {:>10}",
-        "method", "S1 %", "S2 %", "saddle %", "other st.", "no conv.", "error", "grad/start", "hess/start"
+        "method",
+        "S1 %",
+        "S2 %",
+        "saddle %",
+        "other st.",
+        "no conv.",
+        "error",
+        "grad/start",
+        "hess/start"
     );
     for (name, o) in variants {
         let opts = SaddleOptions {
@@ -115,5 +134,7 @@ fn main() {
             t.hessians as f64 / t.starts as f64,
         );
     }
-    println!("reference (plain NR, reference-values.md §1.3 [C]): S1 16.86 %, S2 7.63 %, saddle 24.49 %");
+    println!(
+        "reference (plain NR, reference-values.md §1.3 [C]): S1 16.86 %, S2 7.63 %, saddle 24.49 %"
+    );
 }

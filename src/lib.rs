@@ -3,13 +3,16 @@
 
 pub mod algo;
 pub mod cli;
+pub mod driver;
 pub mod elements;
 pub mod engine;
 pub mod error;
 pub mod eval;
+pub mod executor;
 pub mod geom;
 pub mod molecule;
 pub mod path;
+pub mod store;
 pub mod units;
 pub mod xyz;
 

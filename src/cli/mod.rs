@@ -1,5 +1,7 @@
 //! The command line. Each command lives in its own file with its own clap `Args`.
 
+pub mod evaluate;
+
 use clap::{Parser, Subcommand};
 
 pub mod engines;
@@ -19,6 +21,8 @@ pub struct Cli {
 pub enum Command {
     /// List the engines: adapter files found, their executables, built-in model surfaces.
     Engines(engines::Args),
+    /// Energy and gradient (and Hessian) of one geometry, through the evaluation store.
+    Evaluate(evaluate::Args),
 }
 
 /// Parse arguments, run, and return the process exit status.
@@ -32,5 +36,6 @@ pub fn main() -> i32 {
     };
     match cli.command {
         Command::Engines(a) => engines::run(&a),
+        Command::Evaluate(a) => evaluate::run(a),
     }
 }

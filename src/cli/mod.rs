@@ -21,7 +21,6 @@ pub struct Cli {
 pub enum Command {
     /// List the engines: adapter files found, their executables, built-in model surfaces.
     Engines(engines::Args),
-    /// Energy and gradient (and Hessian) of one geometry, through the evaluation store.
     Evaluate(evaluate::Args),
 }
 

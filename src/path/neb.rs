@@ -206,6 +206,9 @@ impl Neb {
                 tp * dmin + tm * dmax
             }
         };
+        // Rigid rotation/translation between neighbours is not motion along the path: keep
+        // the tangent in the internal subspace of this image.
+        let t = geom::project_vector(&t, &self.images[i], self.frame);
         let nrm = t.norm();
         if nrm > 0.0 {
             t / nrm

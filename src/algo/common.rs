@@ -4,7 +4,7 @@
 
 use super::AlgoError;
 use crate::eval::{Answer, Quantity};
-use crate::geom::{external_basis, Frame};
+use crate::geom::{center_of_mass, orthonormalize, Frame};
 use nalgebra::{DMatrix, DVector};
 use serde::{Deserialize, Serialize};
 
@@ -121,6 +121,55 @@ pub fn rms(v: &DVector<f64>) -> f64 {
     } else {
         (v.norm_squared() / v.len() as f64).sqrt()
     }
+}
+
+/// Orthonormal basis (columns) of the external subspace, as `geom::external_basis` builds it
+/// (translations √m e_α and rotations √m (e_α × r) about the centre of mass, or the z of each
+/// point on a model surface), but robust for linear molecules whose coordinates carry rounding
+/// noise: a candidate vector whose norm is below 1e-6 of the largest candidate's (e.g. the
+/// rotation about the axis of a linear molecule, ~1e-16 instead of exactly 0) is dropped before
+/// orthonormalisation instead of being normalised into a spurious direction.
+pub fn external_basis(x: &DVector<f64>, masses: Option<&[f64]>, frame: Frame) -> DMatrix<f64> {
+    let n3 = x.len();
+    let n = n3 / 3;
+    let mut cands: Vec<DVector<f64>> = Vec::new();
+    match frame {
+        Frame::Surface => {
+            for i in 0..n {
+                let mut v = DVector::zeros(n3);
+                v[3 * i + 2] = 1.0;
+                cands.push(v);
+            }
+        }
+        Frame::Molecule => {
+            let unit = vec![1.0; n];
+            let m: &[f64] = match masses {
+                Some(m) if m.len() == n => m,
+                _ => &unit,
+            };
+            let com = center_of_mass(x, m);
+            for k in 0..3 {
+                let mut v = DVector::zeros(n3);
+                for i in 0..n {
+                    v[3 * i + k] = m[i].sqrt();
+                }
+                cands.push(v);
+            }
+            for k in 0..3 {
+                let (a, b) = ((k + 1) % 3, (k + 2) % 3);
+                let mut v = DVector::zeros(n3);
+                for i in 0..n {
+                    let s = m[i].sqrt();
+                    v[3 * i + b] += s * (x[3 * i + a] - com[a]);
+                    v[3 * i + a] -= s * (x[3 * i + b] - com[b]);
+                }
+                cands.push(v);
+            }
+        }
+    }
+    let biggest = cands.iter().fold(0.0_f64, |a, v| a.max(v.norm()));
+    cands.retain(|v| v.norm() > 1e-6 * biggest);
+    orthonormalize(cands, 1e-6, n3)
 }
 
 /// Orthonormal basis (columns) of the internal subspace: the complement of translations and
@@ -299,5 +348,14 @@ mod tests {
         assert_eq!(internal_basis(&atom, Frame::Molecule).ncols(), 0);
         let pt = DVector::from_vec(vec![0.1, 0.2, 0.0]);
         assert_eq!(internal_basis(&pt, Frame::Surface).ncols(), 2);
+        // A linear molecule on z whose x, y carry rounding noise still has 5 external modes.
+        let noisy = DVector::from_vec(vec![
+            1e-16, -2e-16, 0.0, 3e-17, 1e-16, 1.75, -6e-17, 0.0, -1.75,
+        ]);
+        assert_eq!(
+            external_basis(&noisy, Some(&[16.0, 1.0, 1.0]), Frame::Molecule).ncols(),
+            5
+        );
+        assert_eq!(internal_basis(&noisy, Frame::Molecule).ncols(), 4);
     }
 }

@@ -15,9 +15,9 @@
 //! `n_imaginary` counts the negative ones. Frequencies are still filled in by the same formula
 //! (nominal values, as if the surface were in atomic units).
 
-use super::common::{complement_basis, first_non_finite, sym_eigen};
+use super::common::{complement_basis, external_basis, first_non_finite, sym_eigen};
 use super::AlgoError;
-use crate::geom::{external_basis, Frame};
+use crate::geom::Frame;
 use crate::units::freq_factor_cm1;
 use nalgebra::{DMatrix, DVector};
 use serde::{Deserialize, Serialize};

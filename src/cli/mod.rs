@@ -1,5 +1,6 @@
 //! The command line. Each command lives in its own file with its own clap `Args`.
 
+pub mod check;
 pub mod evaluate;
 
 use clap::{Parser, Subcommand};
@@ -22,6 +23,8 @@ pub enum Command {
     /// List the engines: adapter files found, their executables, built-in model surfaces.
     Engines(engines::Args),
     Evaluate(evaluate::Args),
+    /// Validate a study file and print its plan (reactions, stages, estimated engine calls).
+    Check(check::Args),
 }
 
 /// Parse arguments, run, and return the process exit status.
@@ -36,5 +39,6 @@ pub fn main() -> i32 {
     match cli.command {
         Command::Engines(a) => engines::run(&a),
         Command::Evaluate(a) => evaluate::run(a),
+        Command::Check(a) => check::run(&a),
     }
 }

@@ -1,0 +1,286 @@
+//! What a run leaves in its output directory: the state record (`DIR/state.json`, what each
+//! task did) and one summary per reaction (`DIR/<reaction>/summary.json`). Both are versioned
+//! (`format`); Cairn refuses to rewrite a record newer than it understands.
+//!
+//! Energies in the summary are kcal/mol (thermochemical calorie), frequencies cm⁻¹, times
+//! seconds: the unit is in every field name.
+
+use serde::{Deserialize, Serialize};
+
+/// Version of the files written here.
+pub const FORMAT: u32 = 1;
+
+/// Where a task is.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum RunState {
+    Pending,
+    Running,
+    Done,
+    Failed,
+    /// Not run because a task it needs failed.
+    Blocked,
+}
+
+impl RunState {
+    pub fn name(self) -> &'static str {
+        match self {
+            RunState::Pending => "pending",
+            RunState::Running => "running",
+            RunState::Done => "done",
+            RunState::Failed => "failed",
+            RunState::Blocked => "blocked",
+        }
+    }
+}
+
+/// One task's record.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct TaskRecord {
+    /// The reaction, or for a species relaxation the first reaction that uses it.
+    pub reaction: String,
+    /// Stage name (`relax-ends` for species relaxations).
+    pub stage: String,
+    /// For species relaxations: the species' formula and file, e.g. `HCN (hcn.xyz)`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub species: Option<String>,
+    pub state: RunState,
+    /// Evaluations the algorithm asked for (engine runs + store hits).
+    pub evaluations: u64,
+    pub engine_runs: u64,
+    pub store_hits: u64,
+    pub wall_seconds: f64,
+    /// Why it failed, or a note.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub message: Option<String>,
+}
+
+/// `DIR/state.json`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct StateRecord {
+    pub format: u32,
+    /// The study file the run was made from.
+    pub study: String,
+    /// SHA-256 of the study file's text when the run started.
+    pub study_sha256: String,
+    pub tasks: Vec<TaskRecord>,
+}
+
+impl StateRecord {
+    /// Parse, refusing formats newer than this Cairn understands.
+    pub fn from_json(text: &str, file: &str) -> crate::Result<StateRecord> {
+        let probe: serde_json::Value = serde_json::from_str(text)
+            .map_err(|e| crate::Error::parse(file, e.line(), e.to_string()))?;
+        let format = probe.get("format").and_then(|f| f.as_u64()).unwrap_or(0);
+        if format > u64::from(FORMAT) {
+            return Err(crate::Error::invalid(format!(
+                "{file} has format {format}, newer than this cairn understands ({FORMAT}); use a newer cairn"
+            )));
+        }
+        serde_json::from_str(text).map_err(|e| crate::Error::parse(file, e.line(), e.to_string()))
+    }
+
+    /// The status table: reaction, stage, state, evaluations, time.
+    pub fn table(&self) -> String {
+        let head = ["reaction", "stage", "state", "evaluations", "time"];
+        let rows: Vec<[String; 5]> = self
+            .tasks
+            .iter()
+            .map(|t| {
+                let stage = match &t.species {
+                    Some(s) => format!("{} {s}", t.stage),
+                    None => t.stage.clone(),
+                };
+                [
+                    t.reaction.clone(),
+                    stage,
+                    t.state.name().to_string(),
+                    t.evaluations.to_string(),
+                    format!("{:.1} s", t.wall_seconds),
+                ]
+            })
+            .collect();
+        let mut w = head.map(|h| h.chars().count());
+        for r in &rows {
+            for (k, c) in r.iter().enumerate() {
+                w[k] = w[k].max(c.chars().count());
+            }
+        }
+        let line = |cells: [&str; 5]| {
+            let mut s = String::new();
+            for (k, c) in cells.iter().enumerate() {
+                let pad = w[k].saturating_sub(c.chars().count());
+                if k >= 3 {
+                    s.push_str(&" ".repeat(pad));
+                    s.push_str(c);
+                } else {
+                    s.push_str(c);
+                    s.push_str(&" ".repeat(pad));
+                }
+                if k < 4 {
+                    s.push_str("  ");
+                }
+            }
+            s.trim_end().to_string() + "\n"
+        };
+        let mut out = line(head);
+        for r in &rows {
+            out.push_str(&line([&r[0], &r[1], &r[2], &r[3], &r[4]]));
+        }
+        out
+    }
+}
+
+/// How a reaction ended.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Verdict {
+    /// One imaginary mode and an IRC that connects the reaction's ends (or two distinct minima).
+    Verified,
+    /// A saddle was found, but a check did not pass (see `reason`).
+    Unverified,
+    /// A stage failed before a verdict was possible.
+    Failed,
+}
+
+/// `DIR/<reaction>/summary.json`. Paths are relative to DIR.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Summary {
+    pub format: u32,
+    pub name: String,
+    pub status: Verdict,
+    /// Why the status is what it is, in words.
+    pub reason: String,
+    pub barrier_forward_kcal_mol: Option<f64>,
+    pub barrier_reverse_kcal_mol: Option<f64>,
+    pub reaction_energy_kcal_mol: Option<f64>,
+    /// The imaginary frequency at the saddle, cm⁻¹, given as a positive number.
+    pub imaginary_frequency_cm1: Option<f64>,
+    pub n_imaginary: Option<u32>,
+    pub irc_connects: Option<bool>,
+    pub gradient_evaluations: u64,
+    pub hessian_evaluations: u64,
+    pub engine_runs: u64,
+    pub store_hits: u64,
+    pub wall_seconds: f64,
+    pub saddle_xyz: Option<String>,
+    pub band_xyz: Option<String>,
+    pub irc_xyz: Option<String>,
+}
+
+impl Summary {
+    /// A summary with nothing known yet.
+    pub fn empty(name: &str) -> Summary {
+        Summary {
+            format: FORMAT,
+            name: name.to_string(),
+            status: Verdict::Failed,
+            reason: "not run".into(),
+            barrier_forward_kcal_mol: None,
+            barrier_reverse_kcal_mol: None,
+            reaction_energy_kcal_mol: None,
+            imaginary_frequency_cm1: None,
+            n_imaginary: None,
+            irc_connects: None,
+            gradient_evaluations: 0,
+            hessian_evaluations: 0,
+            engine_runs: 0,
+            store_hits: 0,
+            wall_seconds: 0.0,
+            saddle_xyz: None,
+            band_xyz: None,
+            irc_xyz: None,
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn summary_has_the_documented_field_names() {
+        let mut s = Summary::empty("hcn-hnc");
+        s.status = Verdict::Verified;
+        s.barrier_forward_kcal_mol = Some(47.5);
+        let v: serde_json::Value = serde_json::to_value(&s).unwrap();
+        for k in [
+            "name",
+            "status",
+            "reason",
+            "barrier_forward_kcal_mol",
+            "barrier_reverse_kcal_mol",
+            "reaction_energy_kcal_mol",
+            "imaginary_frequency_cm1",
+            "n_imaginary",
+            "irc_connects",
+            "gradient_evaluations",
+            "hessian_evaluations",
+            "engine_runs",
+            "store_hits",
+            "wall_seconds",
+            "saddle_xyz",
+            "band_xyz",
+            "irc_xyz",
+        ] {
+            assert!(v.get(k).is_some(), "missing {k}");
+        }
+        assert_eq!(v["status"], "verified");
+        let back: Summary = serde_json::from_value(v).unwrap();
+        assert_eq!(back, s);
+    }
+
+    #[test]
+    fn state_table_and_newer_formats() {
+        let rec = StateRecord {
+            format: FORMAT,
+            study: "demo.yaml".into(),
+            study_sha256: "00".into(),
+            tasks: vec![
+                TaskRecord {
+                    reaction: "hcn-hnc".into(),
+                    stage: "relax-ends".into(),
+                    species: Some("HCN (hcn.xyz)".into()),
+                    state: RunState::Done,
+                    evaluations: 12,
+                    engine_runs: 12,
+                    store_hits: 0,
+                    wall_seconds: 0.4,
+                    message: None,
+                },
+                TaskRecord {
+                    reaction: "hcn-hnc".into(),
+                    stage: "band".into(),
+                    species: None,
+                    state: RunState::Running,
+                    evaluations: 130,
+                    engine_runs: 120,
+                    store_hits: 10,
+                    wall_seconds: 5.26,
+                    message: None,
+                },
+            ],
+        };
+        let t = rec.table();
+        let lines: Vec<&str> = t.lines().collect();
+        assert_eq!(
+            lines[0],
+            "reaction  stage                     state    evaluations   time"
+        );
+        assert_eq!(
+            lines[1],
+            "hcn-hnc   relax-ends HCN (hcn.xyz)  done              12  0.4 s"
+        );
+        assert_eq!(
+            lines[2],
+            "hcn-hnc   band                      running          130  5.3 s"
+        );
+        let json = serde_json::to_string(&rec).unwrap();
+        assert_eq!(StateRecord::from_json(&json, "state.json").unwrap(), rec);
+        let newer = json.replace("\"format\":1", "\"format\":99");
+        let err = StateRecord::from_json(&newer, "state.json")
+            .unwrap_err()
+            .to_string();
+        assert!(err.contains("newer than this cairn"), "{err}");
+    }
+}

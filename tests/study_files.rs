@@ -241,7 +241,7 @@ fn cairn_check_prints_the_plan_with_shared_species() {
     );
     for want in [
         "study \"muller-brown-fixture\"",
-        "surface  engine muller-brown found",
+        "surface  muller-brown (built-in model surface)",
         "reactions (4)",
         "a-to-b: from reactant + product",
         "s1-guess: from saddle guess",
@@ -279,6 +279,61 @@ fn unknown_engine_is_reported_at_its_level() {
         err.contains(
             "s.yaml:2:16: key \"levels.l1.engine\": engine \"no-such-engine-here\" is not usable"
         ),
+        "{err}"
+    );
+}
+
+/// A study of one saddle-guess reaction at a level using `engine` with `settings`.
+fn one_level_study(dir: &Path, engine_line: &str) -> PathBuf {
+    std::fs::copy(data("geometries/hcn.xyz"), dir.join("hcn.xyz")).unwrap();
+    let study = dir.join("s.yaml");
+    std::fs::write(
+        &study,
+        format!(
+            "levels:\n  l1: {engine_line}\npipeline: [refine, modes, irc, verify]\nreactions:\n  - {{name: r, guess: hcn.xyz}}\n"
+        ),
+    )
+    .unwrap();
+    study
+}
+
+#[test]
+fn missing_executable_and_bad_settings_are_reported_at_the_level() {
+    let dir = tempfile::tempdir().unwrap();
+    // An adapter like xtb's whose executable does not exist.
+    let xtb = std::fs::read_to_string(
+        PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("adapters/xtb.yaml"),
+    )
+    .unwrap();
+    let ghost = xtb
+        .replace("name: xtb\n", "name: ghost\n")
+        .replace("executable: xtb\n", "executable: cairn-test-no-such-program\n");
+    let adapters = dir.path().join("adapters-extra");
+    std::fs::create_dir(&adapters).unwrap();
+    std::fs::write(adapters.join("ghost.yaml"), ghost).unwrap();
+    let study = one_level_study(dir.path(), "{engine: ghost}");
+    let out = Command::new(env!("CARGO_BIN_EXE_cairn"))
+        .arg("check")
+        .arg(&study)
+        .env("CAIRN_ADAPTERS", &adapters)
+        .current_dir(dir.path())
+        .output()
+        .unwrap();
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(1), "{err}");
+    assert!(
+        err.contains("s.yaml:2:16: key \"levels.l1.engine\": engine \"ghost\": its executable 'cairn-test-no-such-program' is not found on PATH; install it: apt-get install xtb"),
+        "{err}"
+    );
+
+    let dir = tempfile::tempdir().unwrap();
+    let study = one_level_study(dir.path(), "{engine: xtb, settings: {method: gfn7}}");
+    let out = cairn_check(&study, dir.path());
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(1), "{err}");
+    assert!(
+        err.contains("s.yaml:2:16: key \"levels.l1.engine\": engine \"xtb\" is not usable:")
+            && err.contains("gfn7"),
         "{err}"
     );
 }

@@ -35,20 +35,54 @@ pub fn check(path: &std::path::Path) -> Result<String, StudyError> {
     Ok(report(&study, &plan, &engines))
 }
 
-/// Every level's engine must be found (adapter file present, executable found).
+/// Every level's engine must be found: a built-in model surface, or an adapter file whose
+/// settings are accepted and whose executable is on PATH. Returns one line per level.
 fn check_engines(study: &Study) -> Result<Vec<String>, StudyError> {
     let mut out = Vec::new();
     for l in &study.levels {
-        match crate::engine::find_engine(&l.engine, &l.settings) {
-            Ok(e) => out.push(e.identity()),
-            Err(e) => {
-                return Err(study::load::error_in(
-                    study,
-                    &[key("levels"), key(&l.name), key("engine")],
-                    None,
-                    Some(&format!("levels.{}.engine", l.name)),
-                    format!("engine \"{}\" is not usable: {e}", l.engine),
-                ))
+        let fail = |msg: String| {
+            study::load::error_in(
+                study,
+                &[key("levels"), key(&l.name), key("engine")],
+                None,
+                Some(&format!("levels.{}.engine", l.name)),
+                msg,
+            )
+        };
+        let engine = crate::engine::find_engine(&l.engine, &l.settings)
+            .map_err(|e| fail(format!("engine \"{}\" is not usable: {e}", l.engine)))?;
+        if engine.is_model() {
+            out.push(format!("{} (built-in model surface)", l.engine));
+            continue;
+        }
+        let path = crate::engine::adapter::find_adapter_file(&l.engine).ok_or_else(|| {
+            fail(format!(
+                "engine \"{}\" has no adapter file (`cairn engines` lists what is available)",
+                l.engine
+            ))
+        })?;
+        let adapter = crate::engine::adapter::Adapter::load(&path)
+            .map_err(|e| fail(format!("engine \"{}\" is not usable: {e}", l.engine)))?;
+        let (exe, found) = adapter.executable();
+        match found {
+            Some(p) => out.push(format!(
+                "{} {} (adapter {}), executable {}",
+                l.engine,
+                adapter.file.version.0,
+                path.display(),
+                p.display()
+            )),
+            None => {
+                let hint = adapter
+                    .file
+                    .install_hint
+                    .as_deref()
+                    .map(|h| format!("; install it: {h}"))
+                    .unwrap_or_default();
+                return Err(fail(format!(
+                    "engine \"{}\": its executable '{exe}' is not found on PATH{hint}",
+                    l.engine
+                )));
             }
         }
     }
@@ -90,7 +124,13 @@ pub fn report(study: &Study, plan: &Plan, engines: &[String]) -> String {
     let _ = writeln!(s, "\nlevels");
     let wl = study.levels.iter().map(|l| l.name.len()).max().unwrap_or(0);
     for (l, id) in study.levels.iter().zip(engines) {
-        let _ = writeln!(s, "  {:<wl$}  engine {} found ({id})", l.name, l.engine);
+        let settings: Vec<String> = l.settings.iter().map(|(k, v)| format!("{k}={v}")).collect();
+        let settings = if settings.is_empty() {
+            String::new()
+        } else {
+            format!("; settings {}", settings.join(", "))
+        };
+        let _ = writeln!(s, "  {:<wl$}  {id}{settings}", l.name);
     }
     let _ = writeln!(
         s,

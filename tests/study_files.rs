@@ -305,9 +305,10 @@ fn missing_executable_and_bad_settings_are_reported_at_the_level() {
         PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("adapters/xtb.yaml"),
     )
     .unwrap();
-    let ghost = xtb
-        .replace("name: xtb\n", "name: ghost\n")
-        .replace("executable: xtb\n", "executable: cairn-test-no-such-program\n");
+    let ghost = xtb.replace("name: xtb\n", "name: ghost\n").replace(
+        "executable: xtb\n",
+        "executable: cairn-test-no-such-program\n",
+    );
     let adapters = dir.path().join("adapters-extra");
     std::fs::create_dir(&adapters).unwrap();
     std::fs::write(adapters.join("ghost.yaml"), ghost).unwrap();

@@ -155,7 +155,9 @@ pub fn which(program: &str) -> Option<PathBuf> {
         return None;
     }
     if program.contains('/') {
-        let p = PathBuf::from(program);
+        // Made absolute: the child runs in its scratch directory, where a relative path would
+        // mean something else.
+        let p = std::path::absolute(program).unwrap_or_else(|_| PathBuf::from(program));
         return is_exec(&p).then_some(p);
     }
     let path = std::env::var_os("PATH")?;

@@ -5,7 +5,11 @@ pub mod evaluate;
 
 use clap::{Parser, Subcommand};
 
+pub mod band;
 pub mod engines;
+pub mod irc;
+pub mod scan;
+pub mod walk;
 
 #[derive(Parser, Debug)]
 #[command(
@@ -25,6 +29,14 @@ pub enum Command {
     Evaluate(evaluate::Args),
     /// Validate a study file and print its plan (reactions, stages, estimated engine calls).
     Check(check::Args),
+    /// Climbing-image nudged elastic band between two minima.
+    Band(band::Args),
+    /// Relaxed scan of a bond, angle or dihedral (1-D or 2-D).
+    Scan(scan::Args),
+    /// Walk uphill from a minimum along a soft mode to a saddle.
+    Walk(walk::Args),
+    /// Intrinsic reaction coordinate from a saddle, both directions.
+    Irc(irc::Args),
 }
 
 /// Parse arguments, run, and return the process exit status.
@@ -40,5 +52,9 @@ pub fn main() -> i32 {
         Command::Engines(a) => engines::run(&a),
         Command::Evaluate(a) => evaluate::run(a),
         Command::Check(a) => check::run(&a),
+        Command::Band(a) => band::run(a),
+        Command::Scan(a) => scan::run(a),
+        Command::Walk(a) => walk::run(a),
+        Command::Irc(a) => irc::run(a),
     }
 }

@@ -13,6 +13,7 @@ pub mod graph;
 pub mod interp;
 pub mod irc;
 pub mod neb;
+pub mod report;
 pub mod scan;
 pub mod walk;
 

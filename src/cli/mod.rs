@@ -8,6 +8,10 @@ use clap::{Parser, Subcommand};
 pub mod band;
 pub mod engines;
 pub mod irc;
+pub mod modes;
+pub mod record;
+pub mod relax;
+pub mod saddle;
 pub mod scan;
 pub mod walk;
 
@@ -37,6 +41,12 @@ pub enum Command {
     Walk(walk::Args),
     /// Intrinsic reaction coordinate from a saddle, both directions.
     Irc(irc::Args),
+    /// Minimise the energy of a geometry; writes the relaxed XYZ and a JSON record.
+    Relax(relax::Args),
+    /// Refine a transition-state guess to a first-order saddle (P-RFO or Newton–Raphson).
+    Saddle(saddle::Args),
+    /// Harmonic frequencies, normal modes and reduced masses of a geometry.
+    Modes(modes::Args),
 }
 
 /// Parse arguments, run, and return the process exit status.
@@ -56,5 +66,8 @@ pub fn main() -> i32 {
         Command::Scan(a) => scan::run(a),
         Command::Walk(a) => walk::run(a),
         Command::Irc(a) => irc::run(a),
+        Command::Relax(a) => relax::run(a),
+        Command::Saddle(a) => saddle::run(a),
+        Command::Modes(a) => modes::run(a),
     }
 }

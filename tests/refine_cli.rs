@@ -290,3 +290,49 @@ fn bad_inputs_give_clear_errors() {
         .unwrap()
         .contains("no internal degrees of freedom"));
 }
+
+#[test]
+fn follow_a_mode_file_on_muller_brown() {
+    // From near S2, follow the S2 negative-curvature direction (0.500306, −0.865849)
+    // (reference-values.md §1.1 [C]) given as a mode file like those the path commands write.
+    let dir = tempfile::tempdir().unwrap();
+    std::fs::write(dir.path().join("g.xyz"), "1\nnear S2\nX 0.16 0.33 0.0\n").unwrap();
+    std::fs::write(
+        dir.path().join("mode.txt"),
+        "# band tangent at the saddle guess: unit vector\nX 0.500306 -0.865849 0.0\n",
+    )
+    .unwrap();
+    let args = [
+        "saddle",
+        "g.xyz",
+        "--engine",
+        "muller-brown",
+        "--follow-file",
+        "mode.txt",
+        "--store",
+        "st",
+        "--json",
+    ];
+    let o = cairn(&args, dir.path());
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    let r = json(&o);
+    let g = &r["geometry"][0];
+    assert!((num(&g[0]) - 0.212_486_582).abs() < 1e-3 && (num(&g[1]) - 0.292_988_325).abs() < 1e-3);
+    // A mode file for another molecule is refused with file and line.
+    std::fs::write(dir.path().join("bad.txt"), "# x\nH 1 0 0\n").unwrap();
+    let o = cairn(
+        &[
+            "saddle",
+            "g.xyz",
+            "--engine",
+            "muller-brown",
+            "--follow-file",
+            "bad.txt",
+            "--store",
+            "st",
+        ],
+        dir.path(),
+    );
+    assert_eq!(o.status.code(), Some(1));
+    assert!(stderr(&o).contains("bad.txt:2"), "{}", stderr(&o));
+}

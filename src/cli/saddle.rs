@@ -7,6 +7,8 @@ use crate::algo::hessian::HessianSource;
 use crate::algo::saddle::{FollowMode, Method, SaddleOptions, SaddleSearch};
 use crate::driver::{block_on, drive};
 use crate::error::{Error, Result};
+use crate::molecule::Molecule;
+use nalgebra::DVector;
 use serde_json::json;
 use std::path::PathBuf;
 
@@ -37,6 +39,12 @@ pub struct Args {
     /// Hessian mode to climb along at the start, counting from 1 = lowest (P-RFO).
     #[arg(long, value_name = "K", default_value_t = 1, value_parser = clap::value_parser!(u64).range(1..))]
     pub follow_mode: u64,
+    /// Follow the Hessian mode closest to this vector at the start (P-RFO): a file as written
+    /// next to a saddle guess by `cairn band`, `scan` or `walk` (saddle_guess_mode.txt: lines
+    /// starting with # are comments, then one line per atom `Symbol dx dy dz`, in the order of
+    /// the guess). Overrides --follow-mode.
+    #[arg(long, value_name = "FILE")]
+    pub follow_file: Option<PathBuf>,
     /// Build Hessians from central differences of gradients with this step (bohr) instead of
     /// asking the engine (all displacements run as one batch; see --jobs).
     #[arg(long, value_name = "BOHR")]
@@ -61,6 +69,75 @@ pub struct Args {
     /// Imaginary frequencies with |ν| at or below this (cm-1) are not counted.
     #[arg(long, default_value_t = DEFAULT_IMAG_THRESHOLD_CM1)]
     pub imag_threshold: f64,
+}
+
+/// Read a mode file (`# comment` lines, then `Symbol dx dy dz` per atom) for `molecule`.
+pub fn read_mode(path: &std::path::Path, molecule: &Molecule) -> Result<DVector<f64>> {
+    let name = path.display().to_string();
+    let text = std::fs::read_to_string(path)
+        .map_err(|e| Error::io(format!("cannot read the mode file {name}"), e))?;
+    let mut v = Vec::with_capacity(3 * molecule.len());
+    let mut atom = 0;
+    for (ln, line) in text.lines().enumerate() {
+        let t = line.trim();
+        if t.is_empty() || t.starts_with('#') {
+            continue;
+        }
+        let f: Vec<&str> = t.split_whitespace().collect();
+        let Some(expected) = molecule.elements.get(atom) else {
+            return Err(Error::parse(
+                &name,
+                ln + 1,
+                format!(
+                    "more atom lines than the {} atoms of the guess",
+                    molecule.len()
+                ),
+            ));
+        };
+        if f.len() < 4 {
+            return Err(Error::parse(&name, ln + 1, "expected `Symbol dx dy dz`"));
+        }
+        if !f[0].eq_ignore_ascii_case(expected.symbol()) {
+            return Err(Error::parse(
+                &name,
+                ln + 1,
+                format!(
+                    "atom {} is {} in the guess but {} here; the mode must follow the guess's atom order",
+                    atom + 1,
+                    expected.symbol(),
+                    f[0]
+                ),
+            ));
+        }
+        for c in &f[1..4] {
+            match c.parse::<f64>() {
+                Ok(x) if x.is_finite() => v.push(x),
+                _ => {
+                    return Err(Error::parse(
+                        &name,
+                        ln + 1,
+                        format!("'{c}' is not a finite number"),
+                    ))
+                }
+            }
+        }
+        atom += 1;
+    }
+    if atom != molecule.len() {
+        return Err(Error::parse(
+            &name,
+            text.lines().count().max(1),
+            format!(
+                "{atom} atom lines, but the guess has {} atoms",
+                molecule.len()
+            ),
+        ));
+    }
+    let v = DVector::from_vec(v);
+    if v.norm() == 0.0 {
+        return Err(Error::invalid(format!("{name}: the mode is all zeros")));
+    }
+    Ok(v)
 }
 
 pub fn run(args: Args) -> i32 {
@@ -105,6 +182,9 @@ fn execute(a: &Args) -> Result<i32> {
     } else {
         FollowMode::Index(k)
     };
+    if let Some(f) = &a.follow_file {
+        opts.follow = FollowMode::Vector(read_mode(f, &s.molecule)?);
+    }
     if let Some(h) = a.fd_step {
         opts.hessian = HessianSource::FiniteDifference { step: h };
     }

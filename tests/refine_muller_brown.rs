@@ -338,3 +338,42 @@ fn two_negative_eigenvalues_at_the_start_give_a_clear_verdict() {
         }
     }
 }
+
+#[test]
+fn non_finite_engine_answers_stop_with_a_clear_error() {
+    // A Hessian with NaN (as a broken engine output would give) stops the refinement with an
+    // error naming the entry; a NaN gradient stops the minimiser. No panic.
+    let (x, y, _) = SADDLES[0];
+    let mut a = SaddleSearch::new(pt(x, y), Frame::Surface, SaddleOptions::for_surface());
+    let e = run_sync(
+        &mut a,
+        |p| {
+            let mut ans = mb(p);
+            if let Some(h) = ans.hessian.as_mut() {
+                h[(1, 0)] = f64::NAN;
+            }
+            ans
+        },
+        100,
+    )
+    .unwrap_err();
+    assert!(e.0.contains("Hessian") && e.0.contains("non-finite"), "{e}");
+    let mut m = Minimizer::new(pt(0.3, 0.1), Frame::Surface, MinOptions::for_surface());
+    let mut calls = 0;
+    let e = run_sync(
+        &mut m,
+        |p| {
+            calls += 1;
+            let mut ans = mb(p);
+            if calls == 3 {
+                if let Some(g) = ans.gradient.as_mut() {
+                    g[0] = f64::NAN;
+                }
+            }
+            ans
+        },
+        100,
+    )
+    .unwrap_err();
+    assert!(e.0.contains("step 2") && e.0.contains("non-finite"), "{e}");
+}

@@ -25,7 +25,6 @@ use crate::eval::{Answer, Point, Quantity};
 use crate::executor::{Executor, LocalExecutor, RunReport};
 use crate::molecule::Molecule;
 use crate::store::{EntryRequest, Key, Lookup, Provenance, Store};
-use nalgebra::DVector;
 use serde::Serialize;
 use std::collections::HashMap;
 use std::path::{Path, PathBuf};
@@ -272,7 +271,8 @@ impl Evaluator {
     /// Answer every point, with where each answer came from.
     ///
     /// Points are looked up in the store first; the misses run in parallel through the
-    /// executor and are filed. Every answer is validated for its quantity. When some job fails,
+    /// executor and are filed (queued for the store's background writer: visible to lookups at
+    /// once, on disk after [`Evaluator::flush`]; [`drive`] flushes at its verdict). Every answer is validated for its quantity. When some job fails,
     /// the successful ones are still filed (so running again resumes) and the error names the
     /// engine, the point and what to do.
     pub async fn evaluate_detailed(
@@ -489,70 +489,66 @@ impl Evaluator {
                 }
             }
         }
-        if ok.is_empty() && failed_outputs.is_empty() {
-            return match first_error {
-                Some(e) => Err(e),
-                None => Ok(Vec::new()),
-            };
-        }
-        // File on the blocking pool: each entry is fsynced.
-        let store = self.store.clone();
-        let identity = self.identity.clone();
-        let engine_name = name.clone();
-        let system = system.clone();
-        let coords: Vec<DVector<f64>> = ok
-            .iter()
-            .map(|(i, _, _)| points[*i].coords.clone())
-            .collect();
-        let quantities: Vec<Quantity> = ok.iter().map(|(i, _, _)| points[*i].quantity).collect();
-        let ok_keys: Vec<Key> = ok.iter().map(|(i, _, _)| keys[*i]).collect();
-        let filed = tokio::task::spawn_blocking(move || -> Result<Vec<(Key, Evaluated)>> {
-            for (k, raw) in &failed_outputs {
-                if let Err(e) = store.keep_failed_output(k, raw) {
-                    tracing::warn!("{e}");
+        if !failed_outputs.is_empty() {
+            let store = self.store.clone();
+            let kept = tokio::task::spawn_blocking(move || {
+                for (k, raw) in &failed_outputs {
+                    if let Err(e) = store.keep_failed_output(k, raw) {
+                        tracing::warn!("{e}");
+                    }
                 }
+            })
+            .await;
+            if let Err(e) = kept {
+                tracing::warn!("keeping failed engine output: {e}");
             }
-            let mut evs = Vec::with_capacity(ok.len());
-            for (((_, o, failures), c), (q, k)) in ok
-                .into_iter()
-                .zip(coords)
-                .zip(quantities.into_iter().zip(ok_keys))
-            {
-                let req = EntryRequest {
-                    identity: &identity,
-                    charge: system.charge,
-                    multiplicity: system.multiplicity,
-                    elements: &system.elements,
-                    coords: &c,
-                    quantity: q,
-                };
-                let prov = Provenance {
-                    engine_name: engine_name.clone(),
-                    remedies: o.remedies.clone(),
-                    failures,
+        }
+        // Queue for the store's background writer (lookups see them at once; `flush` or the
+        // end of `drive` waits until they are on disk).
+        let mut filed = Vec::with_capacity(ok.len());
+        for (i, o, failures) in ok {
+            let k = keys[i];
+            let req = EntryRequest {
+                identity: &self.identity,
+                charge: system.charge,
+                multiplicity: system.multiplicity,
+                elements: &system.elements,
+                coords: &points[i].coords,
+                quantity: points[i].quantity,
+            };
+            let prov = Provenance {
+                engine_name: name.clone(),
+                remedies: o.remedies.clone(),
+                failures,
+                engine_seconds: o.seconds,
+            };
+            self.store
+                .put_later(&k, &req, &o.answer, &prov, o.raw_output)?;
+            filed.push((
+                k,
+                Evaluated {
+                    answer: o.answer,
+                    source: Source::Engine,
+                    key: k,
+                    entry: self.store.entry_path(&k),
+                    remedies: o.remedies,
                     engine_seconds: o.seconds,
-                };
-                store.put(&k, &req, &o.answer, &prov, &o.raw_output)?;
-                evs.push((
-                    k,
-                    Evaluated {
-                        answer: o.answer,
-                        source: Source::Engine,
-                        key: k,
-                        entry: store.entry_path(&k),
-                        remedies: o.remedies,
-                        engine_seconds: o.seconds,
-                    },
-                ));
-            }
-            Ok(evs)
-        })
-        .await
-        .map_err(|e| Error::invalid(format!("filing results in the store failed: {e}")))??;
+                },
+            ));
+        }
         match first_error {
             Some(e) => Err(e),
             None => Ok(filed),
         }
+    }
+
+    /// Wait until every result filed so far is on disk (the store writes in the background).
+    /// Reports a failed store write.
+    pub async fn flush(&self) -> Result<()> {
+        let store = self.store.clone();
+        tokio::task::spawn_blocking(move || store.flush())
+            .await
+            .map_err(|e| Error::invalid(format!("flushing the evaluation store failed: {e}")))?
     }
 }
 
@@ -617,7 +613,10 @@ where
             ))
         })?;
         match step {
-            Step::Done(v) => return Ok((v, mine.stats())),
+            Step::Done(v) => {
+                mine.flush().await?;
+                return Ok((v, mine.stats()));
+            }
             Step::Evaluate(points) => {
                 round += 1;
                 answers = mine.evaluate(system, &points).await?;

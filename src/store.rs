@@ -12,6 +12,10 @@
 //! disk, edited by hand) is reported as [`Lookup::Unusable`] and treated as missing, never a
 //! panic. An entry written by a newer Cairn (a `format` above [`FORMAT`]) is neither used nor
 //! overwritten.
+//!
+//! [`Store::put`] writes one entry durably before returning; [`Store::put_later`] (used by the
+//! driver) queues it for a background writer that writes batches with the same steps, so disk
+//! syncs overlap engine runs; [`Store::flush`] waits for the queue.
 
 use crate::elements::Element;
 use crate::error::{Error, Result};
@@ -119,6 +123,40 @@ pub struct Entry {
 }
 
 impl Entry {
+    /// The entry for `answer` to `request`, stamped now.
+    pub fn new(
+        key: &Key,
+        request: &EntryRequest<'_>,
+        answer: &Answer,
+        provenance: &Provenance,
+    ) -> Entry {
+        Entry {
+            format: FORMAT,
+            key: key.hex(),
+            engine: request.identity.to_string(),
+            engine_name: provenance.engine_name.clone(),
+            quantity: request.quantity,
+            charge: request.charge,
+            multiplicity: request.multiplicity,
+            elements: request.elements.iter().map(|e| e.0).collect(),
+            coords_bohr: request.coords.iter().copied().collect(),
+            energy_hartree: answer.energy,
+            gradient_hartree_per_bohr: answer
+                .gradient
+                .as_ref()
+                .map(|g| g.iter().copied().collect()),
+            hessian_hartree_per_bohr2: answer.hessian.as_ref().map(|h| {
+                (0..h.nrows())
+                    .map(|i| h.row(i).iter().copied().collect())
+                    .collect()
+            }),
+            remedies: provenance.remedies.clone(),
+            failures: provenance.failures.clone(),
+            engine_seconds: provenance.engine_seconds,
+            created: now_rfc3339(),
+        }
+    }
+
     /// The stored answer as an [`Answer`]. Fails (with a reason) on inconsistent sizes.
     pub fn answer(&self) -> std::result::Result<Answer, String> {
         let gradient = self
@@ -168,12 +206,181 @@ pub enum Lookup {
 }
 
 /// An evaluation store in one directory.
-#[derive(Debug)]
+///
+/// Writes come two ways: [`Store::put`] writes one entry durably before returning;
+/// [`Store::put_later`] queues it for a background writer thread that files queued entries in
+/// batches (same atomic steps, fsyncs shared by the batch), so disk syncs overlap engine runs.
+/// Queued entries are visible to [`Store::get`] at once; [`Store::flush`] waits until they are
+/// on disk. Dropping the store flushes.
 pub struct Store {
     root: PathBuf,
     evals: PathBuf,
     /// Keys being evaluated right now in this process (see [`Store::lock_keys`]).
     inflight: Mutex<HashMap<Key, Weak<tokio::sync::Mutex<()>>>>,
+    writer: Arc<WriterShared>,
+    thread: Mutex<Option<std::thread::JoinHandle<()>>>,
+}
+
+impl std::fmt::Debug for Store {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Store").field("root", &self.root).finish()
+    }
+}
+
+/// Most entries waiting for the background writer before `put_later` waits for room.
+const MAX_QUEUED: usize = 4096;
+
+/// One entry waiting to be written.
+struct Pending {
+    key: Key,
+    entry_path: PathBuf,
+    output_path: PathBuf,
+    entry: Arc<Entry>,
+    raw_output: String,
+}
+
+#[derive(Default)]
+struct WriterState {
+    queue: Vec<Pending>,
+    /// Entries queued or being written, by key (answers lookups before they reach the disk).
+    pending: HashMap<Key, Arc<Entry>>,
+    busy: bool,
+    /// First write error of the background writer, reported by `flush` and `put_later`.
+    error: Option<String>,
+    shutdown: bool,
+}
+
+#[derive(Default)]
+struct WriterShared {
+    state: Mutex<WriterState>,
+    cv: std::sync::Condvar,
+}
+
+impl WriterShared {
+    fn lock(&self) -> std::sync::MutexGuard<'_, WriterState> {
+        self.state.lock().unwrap_or_else(|e| e.into_inner())
+    }
+    fn wait<'a>(
+        &self,
+        g: std::sync::MutexGuard<'a, WriterState>,
+    ) -> std::sync::MutexGuard<'a, WriterState> {
+        self.cv.wait(g).unwrap_or_else(|e| e.into_inner())
+    }
+}
+
+fn writer_loop(shared: Arc<WriterShared>) {
+    loop {
+        let batch = {
+            let mut st = shared.lock();
+            while st.queue.is_empty() && !st.shutdown {
+                st = shared.wait(st);
+            }
+            if st.queue.is_empty() {
+                return;
+            }
+            st.busy = true;
+            std::mem::take(&mut st.queue)
+        };
+        shared.cv.notify_all();
+        let written: Vec<(Key, Arc<Entry>)> =
+            batch.iter().map(|p| (p.key, p.entry.clone())).collect();
+        let result = write_batch(batch);
+        let mut st = shared.lock();
+        st.busy = false;
+        for (k, e) in written {
+            if st.pending.get(&k).is_some_and(|p| Arc::ptr_eq(p, &e)) {
+                st.pending.remove(&k);
+            }
+        }
+        if let Err(e) = result {
+            tracing::error!("{e}");
+            st.error.get_or_insert_with(|| e.to_string());
+        }
+        drop(st);
+        shared.cv.notify_all();
+    }
+}
+
+/// Write entries (and their raw outputs) atomically: all temp files written, all fsynced, all
+/// renamed (each output before its entry), then every directory touched fsynced once.
+/// Entries whose file on disk has a newer format are skipped. Returns how many were written.
+fn write_batch(batch: Vec<Pending>) -> Result<usize> {
+    let mut temps: Vec<(tempfile::NamedTempFile, PathBuf)> = Vec::new();
+    let mut dirs: Vec<PathBuf> = Vec::new();
+    let mut written = 0;
+    for p in &batch {
+        if let Some(f) = newer_format_on_disk(&p.entry_path) {
+            tracing::warn!(
+                "store entry {} has format {f}, newer than this Cairn understands ({FORMAT}); leaving it as it is",
+                p.entry_path.display()
+            );
+            continue;
+        }
+        let json = serde_json::to_vec_pretty(&*p.entry).map_err(|e| {
+            Error::invalid(format!(
+                "cannot encode store entry {}: {e}",
+                p.entry_path.display()
+            ))
+        })?;
+        let dir = p
+            .entry_path
+            .parent()
+            .unwrap_or(Path::new("."))
+            .to_path_buf();
+        if !dirs.contains(&dir) {
+            ensure_dir(&dir)?;
+            dirs.push(dir);
+        }
+        if !p.raw_output.is_empty() {
+            temps.push((
+                temp_with(&p.output_path, p.raw_output.as_bytes())?,
+                p.output_path.clone(),
+            ));
+        }
+        temps.push((temp_with(&p.entry_path, &json)?, p.entry_path.clone()));
+        written += 1;
+    }
+    for (t, path) in &temps {
+        t.as_file()
+            .sync_all()
+            .map_err(|e| Error::io(format!("cannot write {}", path.display()), e))?;
+    }
+    for (t, path) in temps {
+        t.persist(&path)
+            .map_err(|e| Error::io(format!("cannot rename into {}", path.display()), e.error))?;
+    }
+    for d in &dirs {
+        sync_dir(d)?;
+    }
+    Ok(written)
+}
+
+/// A temp file beside `path` holding `bytes` (not yet synced).
+fn temp_with(path: &Path, bytes: &[u8]) -> Result<tempfile::NamedTempFile> {
+    let dir = path.parent().unwrap_or(Path::new("."));
+    let mut tmp = tempfile::Builder::new()
+        .prefix(".tmp-")
+        .tempfile_in(dir)
+        .map_err(|e| {
+            Error::io(
+                format!("cannot create a temporary file in {}", dir.display()),
+                e,
+            )
+        })?;
+    tmp.write_all(bytes)
+        .map_err(|e| Error::io(format!("cannot write {}", path.display()), e))?;
+    Ok(tmp)
+}
+
+impl Drop for Store {
+    fn drop(&mut self) {
+        self.writer.lock().shutdown = true;
+        self.writer.cv.notify_all();
+        let handle = self.thread.lock().unwrap_or_else(|e| e.into_inner()).take();
+        if let Some(h) = handle {
+            let _ = h.join();
+        }
+    }
 }
 
 /// Held while the keys it was made for are being evaluated; see [`Store::lock_keys`].
@@ -199,6 +406,8 @@ impl Store {
             root,
             evals,
             inflight: Mutex::new(HashMap::new()),
+            writer: Arc::new(WriterShared::default()),
+            thread: Mutex::new(None),
         })
     }
 
@@ -227,6 +436,9 @@ impl Store {
 
     /// Look an entry up. Never fails: problems come back as [`Lookup::Unusable`].
     pub fn get(&self, key: &Key) -> Lookup {
+        if let Some(e) = self.writer.lock().pending.get(key).cloned() {
+            return Lookup::Hit(Box::new((*e).clone()));
+        }
         let path = self.entry_path(key);
         let bytes = match std::fs::read(&path) {
             Ok(b) => b,
@@ -241,7 +453,8 @@ impl Store {
         parse_entry(&bytes, key, &path)
     }
 
-    /// File an entry with its raw engine output (atomically; see the module documentation).
+    /// File an entry with its raw engine output now, durably (atomically; see the module
+    /// documentation).
     ///
     /// An existing entry of a newer format is left alone (returns `Ok(false)`); otherwise the
     /// entry is written and `Ok(true)` returned.
@@ -253,50 +466,78 @@ impl Store {
         provenance: &Provenance,
         raw_output: &str,
     ) -> Result<bool> {
-        let path = self.entry_path(key);
-        if let Some(f) = newer_format_on_disk(&path) {
-            tracing::warn!(
-                "store entry {} has format {f}, newer than this Cairn understands ({FORMAT}); leaving it as it is",
-                path.display()
-            );
-            return Ok(false);
+        let entry = Arc::new(Entry::new(key, request, answer, provenance));
+        let n = write_batch(vec![self.pending(key, entry, raw_output.to_string())])?;
+        Ok(n == 1)
+    }
+
+    /// Queue an entry for the background writer and return at once. The entry answers
+    /// [`Store::get`] immediately; it is on disk after [`Store::flush`] (or when the store is
+    /// dropped). Fails if an earlier background write failed. Waits only when very many
+    /// entries are queued already.
+    pub fn put_later(
+        &self,
+        key: &Key,
+        request: &EntryRequest<'_>,
+        answer: &Answer,
+        provenance: &Provenance,
+        raw_output: String,
+    ) -> Result<()> {
+        let entry = Arc::new(Entry::new(key, request, answer, provenance));
+        let item = self.pending(key, entry.clone(), raw_output);
+        {
+            let mut st = self.writer.lock();
+            if let Some(e) = &st.error {
+                return Err(Error::invalid(format!(
+                    "the evaluation store in {} could not be written: {e}",
+                    self.root.display()
+                )));
+            }
+            while st.queue.len() >= MAX_QUEUED {
+                st = self.writer.wait(st);
+            }
+            st.pending.insert(*key, entry);
+            st.queue.push(item);
         }
-        let entry = Entry {
-            format: FORMAT,
-            key: key.hex(),
-            engine: request.identity.to_string(),
-            engine_name: provenance.engine_name.clone(),
-            quantity: request.quantity,
-            charge: request.charge,
-            multiplicity: request.multiplicity,
-            elements: request.elements.iter().map(|e| e.0).collect(),
-            coords_bohr: request.coords.iter().copied().collect(),
-            energy_hartree: answer.energy,
-            gradient_hartree_per_bohr: answer
-                .gradient
-                .as_ref()
-                .map(|g| g.iter().copied().collect()),
-            hessian_hartree_per_bohr2: answer.hessian.as_ref().map(|h| {
-                (0..h.nrows())
-                    .map(|i| h.row(i).iter().copied().collect())
-                    .collect()
-            }),
-            remedies: provenance.remedies.clone(),
-            failures: provenance.failures.clone(),
-            engine_seconds: provenance.engine_seconds,
-            created: now_rfc3339(),
-        };
-        let json = serde_json::to_vec_pretty(&entry).map_err(|e| {
-            Error::invalid(format!("cannot encode store entry {}: {e}", path.display()))
-        })?;
-        let dir = path.parent().unwrap_or(&self.evals).to_path_buf();
-        ensure_dir(&dir)?;
-        if !raw_output.is_empty() {
-            write_atomic_nosync_dir(&self.output_path(key), raw_output.as_bytes())?;
+        {
+            let mut t = self.thread.lock().unwrap_or_else(|e| e.into_inner());
+            if t.is_none() {
+                let shared = self.writer.clone();
+                let handle = std::thread::Builder::new()
+                    .name("cairn-store-writer".into())
+                    .spawn(move || writer_loop(shared))
+                    .map_err(|e| Error::io("cannot start the store writer thread", e))?;
+                *t = Some(handle);
+            }
         }
-        write_atomic_nosync_dir(&path, &json)?;
-        sync_dir(&dir)?;
-        Ok(true)
+        self.writer.cv.notify_all();
+        Ok(())
+    }
+
+    /// Wait until every entry queued with [`Store::put_later`] is on disk. Reports the first
+    /// background write error, if any.
+    pub fn flush(&self) -> Result<()> {
+        let mut st = self.writer.lock();
+        while !st.queue.is_empty() || st.busy {
+            st = self.writer.wait(st);
+        }
+        match &st.error {
+            Some(e) => Err(Error::invalid(format!(
+                "the evaluation store in {} could not be written: {e}",
+                self.root.display()
+            ))),
+            None => Ok(()),
+        }
+    }
+
+    fn pending(&self, key: &Key, entry: Arc<Entry>, raw_output: String) -> Pending {
+        Pending {
+            key: *key,
+            entry_path: self.entry_path(key),
+            output_path: self.output_path(key),
+            entry,
+            raw_output,
+        }
     }
 
     /// Keep the raw output of a run that gave no usable answer; returns where it went.

@@ -311,3 +311,18 @@ fn model_atoms_and_wrong_sizes_are_bad_input() {
     j.coords[0] = f64::NAN;
     assert_eq!(e.evaluate(&j, 0).unwrap_err().kind, FailureKind::BadInput);
 }
+
+#[test]
+fn time_limit_can_be_overridden_in_code() {
+    use cairn::engine::adapter::AdapterEngine;
+    let path = fixtures().join("adapters/standin.yaml");
+    let a = Arc::new(Adapter::load(&path).unwrap());
+    let s: Settings = [("mode".to_string(), "sleep".to_string())].into();
+    let e = AdapterEngine::new(a, &s)
+        .unwrap()
+        .with_timeout(Some(std::time::Duration::from_millis(200)));
+    let f = fail(&e, Quantity::Gradient);
+    assert_eq!(f.kind, FailureKind::Timeout, "{f}");
+    assert!(f.message.contains("0.2 s"), "{f}");
+    cleanup(&f);
+}

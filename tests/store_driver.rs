@@ -122,7 +122,9 @@ fn repeated_request_starts_no_engine() {
         (1, 1, 1)
     );
 
-    // Same request through a fresh evaluator on the same directory: no engine run.
+    // Same request through a fresh evaluator on the same directory (once the first has
+    // written its entries): no engine run.
+    block_on(ev.flush()).unwrap();
     let ev2 = evaluator(engine.clone(), dir.path(), 2);
     let second = block_on(ev2.evaluate_detailed(&sys, &points)).unwrap();
     assert_eq!(engine.calls.load(Ordering::SeqCst), 3, "engine ran again");
@@ -299,6 +301,7 @@ fn retries_follow_the_budget() {
     assert_eq!(entry.remedies, vec!["remedy-2".to_string()]);
     assert_eq!(entry.failures.len(), 2);
     assert!(entry.failures[0].contains("scripted failure on attempt 0"));
+    store.flush().unwrap();
     let raw = std::fs::read_to_string(store.output_path(&out[0].key)).unwrap();
     assert_eq!(raw, "counting engine output, attempt 2\n");
 

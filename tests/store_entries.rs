@@ -234,6 +234,7 @@ fn garbage_and_truncated_entries_are_reported_and_replaced() {
     let (k1, p1) = mb_key(0.2, 0.4, Quantity::Gradient);
     let (k2, p2) = mb_key(0.3, 0.4, Quantity::Gradient);
     block_on(ev.evaluate(&sys, &[p1.clone(), p2.clone()])).unwrap();
+    store.flush().unwrap();
     let good = std::fs::read(store.entry_path(&k1)).unwrap();
     // k1: garbage; k2: a valid entry cut in half.
     std::fs::write(store.entry_path(&k1), b"\x00\xffnot json at all").unwrap();
@@ -293,6 +294,7 @@ fn newer_format_entries_are_not_used_and_never_rewritten() {
     let (k1, p1) = mb_key(0.5, 0.5, Quantity::Gradient);
     let (k2, p2) = mb_key(0.6, 0.5, Quantity::Gradient);
     block_on(ev.evaluate(&sys, std::slice::from_ref(&p1))).unwrap();
+    store.flush().unwrap();
     // k1: same fields, format 2. k2: a format-2 entry we cannot parse at all.
     let mut v: serde_json::Value =
         serde_json::from_slice(&std::fs::read(store.entry_path(&k1)).unwrap()).unwrap();
@@ -310,6 +312,7 @@ fn newer_format_entries_are_not_used_and_never_rewritten() {
     }
     let scoped = ev.scoped();
     block_on(scoped.evaluate(&sys, &[p1, p2])).unwrap();
+    store.flush().unwrap();
     assert_eq!(scoped.stats().engine_runs, 2);
     assert_eq!(std::fs::read(store.entry_path(&k1)).unwrap(), newer1);
     assert_eq!(std::fs::read(store.entry_path(&k2)).unwrap(), newer2);
@@ -323,10 +326,99 @@ fn entry_under_the_wrong_name_is_not_used() {
     let (k1, p1) = mb_key(0.1, 0.1, Quantity::Energy);
     let (k2, _) = mb_key(0.2, 0.2, Quantity::Energy);
     block_on(ev.evaluate(&sys, &[p1])).unwrap();
+    store.flush().unwrap();
     std::fs::create_dir_all(store.entry_path(&k2).parent().unwrap()).unwrap();
     std::fs::copy(store.entry_path(&k1), store.entry_path(&k2)).unwrap();
     let Lookup::Unusable(why) = store.get(&k2) else {
         panic!("copied entry used under another key")
     };
     assert!(why.contains("not its file name"), "{why}");
+}
+
+#[test]
+fn queued_entries_answer_at_once_and_reach_the_disk() {
+    let dir = tempfile::tempdir().unwrap();
+    let el = [Element(1), Element(1)];
+    let answer = Answer {
+        energy: -1.1,
+        gradient: Some(DVector::from_vec(vec![0.0, 0.0, -0.01, 0.0, 0.0, 0.01])),
+        hessian: None,
+    };
+    let mut keys = Vec::new();
+    {
+        let store = Store::open(dir.path()).unwrap();
+        for i in 0..50 {
+            let c = DVector::from_vec(vec![0.0, 0.0, 0.0, 0.0, 0.0, 1.4 + 1e-3 * i as f64]);
+            let r = req(&el, &c, Quantity::Gradient);
+            let k = r.key();
+            store
+                .put_later(
+                    &k,
+                    &r,
+                    &answer,
+                    &Provenance::default(),
+                    format!("out {i}\n"),
+                )
+                .unwrap();
+            // Visible at once, whether or not the writer got to it yet.
+            assert!(matches!(store.get(&k), Lookup::Hit(_)));
+            keys.push(k);
+        }
+        store.flush().unwrap();
+        for (i, k) in keys.iter().enumerate() {
+            assert!(store.entry_path(k).is_file());
+            assert_eq!(
+                std::fs::read_to_string(store.output_path(k)).unwrap(),
+                format!("out {i}\n")
+            );
+        }
+        // More queued, then the store is dropped without an explicit flush.
+        for i in 50..60 {
+            let c = DVector::from_vec(vec![0.0, 0.0, 0.0, 0.0, 0.0, 1.4 + 1e-3 * i as f64]);
+            let r = req(&el, &c, Quantity::Gradient);
+            let k = r.key();
+            store
+                .put_later(&k, &r, &answer, &Provenance::default(), String::new())
+                .unwrap();
+            keys.push(k);
+        }
+    }
+    let store = Store::open(dir.path()).unwrap();
+    let check = store.check().unwrap();
+    assert_eq!(
+        (check.usable, check.unusable.len(), check.temporary),
+        (60, 0, 0)
+    );
+    for k in &keys {
+        assert!(matches!(store.get(k), Lookup::Hit(_)));
+    }
+}
+
+#[test]
+fn a_failed_background_write_is_reported() {
+    let dir = tempfile::tempdir().unwrap();
+    let store = Store::open(dir.path()).unwrap();
+    let el = [Element(1), Element(1)];
+    let c = DVector::from_vec(vec![0.0, 0.0, 0.0, 0.0, 0.0, 1.4]);
+    let r = req(&el, &c, Quantity::Energy);
+    let k = r.key();
+    // A plain file where the shard directory should be: the write cannot succeed.
+    let shard = store.entry_path(&k).parent().unwrap().to_path_buf();
+    std::fs::write(&shard, b"in the way").unwrap();
+    let a = Answer {
+        energy: -1.0,
+        gradient: None,
+        hessian: None,
+    };
+    store
+        .put_later(&k, &r, &a, &Provenance::default(), String::new())
+        .unwrap();
+    let err = store.flush().unwrap_err().to_string();
+    assert!(err.contains("could not be written"), "{err}");
+    assert!(err.contains(&dir.path().display().to_string()), "{err}");
+    // Later writes are refused with the same report, and the lost entry is not served.
+    assert!(store
+        .put_later(&k, &r, &a, &Provenance::default(), String::new())
+        .is_err());
+    assert!(matches!(store.get(&k), Lookup::Miss | Lookup::Unusable(_)));
 }

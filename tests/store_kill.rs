@@ -14,7 +14,8 @@ use std::time::{Duration, Instant};
 const CHILD_ENV: &str = "CAIRN_TEST_STORE_KILL_DIR";
 
 /// Helper run only as the child of `sigkill_mid_write_leaves_no_damaged_entry`: files entries
-/// (with a 30×30 Hessian and a raw output, so each write takes a while) until killed.
+/// (with a 30×30 Hessian and a raw output, so each write takes a while) until killed, half
+/// directly and half through the background writer.
 #[test]
 #[ignore = "helper process for sigkill_mid_write_leaves_no_damaged_entry"]
 fn writer_child() {
@@ -39,9 +40,19 @@ fn writer_child() {
             coords: &coords,
             quantity: Quantity::Hessian,
         };
-        store
-            .put(&r.key(), &r, &answer, &Provenance::default(), &raw)
-            .unwrap();
+        // Both write paths: direct durable writes and the batched background writer.
+        if i % 2 == 0 {
+            store
+                .put(&r.key(), &r, &answer, &Provenance::default(), &raw)
+                .unwrap();
+        } else {
+            store
+                .put_later(&r.key(), &r, &answer, &Provenance::default(), raw.clone())
+                .unwrap();
+        }
+        if i % 8 == 7 {
+            store.flush().unwrap();
+        }
     }
 }
 

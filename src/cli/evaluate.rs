@@ -102,7 +102,14 @@ fn execute(args: &Args) -> Result<String> {
     if args.hessian {
         points.push(Point::new(x, Quantity::Hessian));
     }
-    let results = block_on(ev.evaluate_detailed(&system, &points))?;
+    let results = block_on(async {
+        let r = ev.evaluate_detailed(&system, &points).await;
+        // File what was computed even when another point failed.
+        let flushed = ev.flush().await;
+        let r = r?;
+        flushed?;
+        Ok(r)
+    })?;
     let grad_ev = results
         .first()
         .ok_or_else(|| Error::invalid("the engine returned no answer"))?;

@@ -997,6 +997,8 @@ pub struct AdapterEngine {
     /// Effective settings: every declared setting, defaults filled in, values canonical.
     settings: BTreeMap<String, String>,
     scratch_root: Option<PathBuf>,
+    /// Time limit override (`Some(None)`: none at all).
+    timeout: Option<Option<Duration>>,
 }
 
 impl AdapterEngine {
@@ -1037,7 +1039,14 @@ impl AdapterEngine {
             adapter,
             settings: eff,
             scratch_root: std::env::var_os("CAIRN_SCRATCH").map(PathBuf::from),
+            timeout: None,
         })
+    }
+
+    /// Override the adapter's `timeout_seconds` (`None`: no limit).
+    pub fn with_timeout(mut self, limit: Option<Duration>) -> Self {
+        self.timeout = Some(limit);
+        self
     }
 
     /// Make scratch directories under `root` instead.
@@ -1145,7 +1154,7 @@ impl Engine for AdapterEngine {
             return Err(self.fail(FailureKind::BadInput, e.to_string(), None));
         }
         let (settings, remedies) = self.settings_for_attempt(attempt);
-        let prepared = self
+        let mut prepared = self
             .adapter
             .prepare(job, &settings, self.scratch_root.as_deref())
             .map_err(|m| {
@@ -1155,6 +1164,9 @@ impl Engine for AdapterEngine {
                     None,
                 )
             })?;
+        if let Some(limit) = self.timeout {
+            prepared.spec.timeout = limit;
+        }
         let mut fin = match process::run(&prepared.spec) {
             Ok(f) => f,
             Err(SpawnError::Missing(m)) => {

@@ -256,6 +256,16 @@ pub fn run(spec: &RunSpec) -> Result<Finished, SpawnError> {
         .stdout(Stdio::piped())
         .stderr(Stdio::piped())
         .process_group(0);
+    // The engine runs in its own process group, so a Ctrl-C at the terminal does not reach it;
+    // instead it gets SIGTERM when the thread that started it dies (that thread blocks in
+    // `run` until the engine has finished, so this only fires when Cairn itself is killed).
+    // SAFETY: prctl is async-signal-safe and touches no memory of the parent.
+    unsafe {
+        cmd.pre_exec(|| {
+            libc::prctl(libc::PR_SET_PDEATHSIG, libc::SIGTERM);
+            Ok(())
+        });
+    }
     let start = Instant::now();
     let mut child = match cmd.spawn() {
         Ok(c) => c,

@@ -248,7 +248,11 @@ impl SaddleSearch {
     }
 
     fn verdict(&mut self, converged: bool, mut reason: String) -> Step<SaddleVerdict> {
-        if self.initial_negative != 1 && self.hessian_evaluations + self.gradient_evaluations > 1 {
+        let has_modes = self.x.len() > 3 || self.frame == Frame::Surface;
+        if self.initial_negative != 1
+            && has_modes
+            && self.hessian_evaluations + self.gradient_evaluations > 1
+        {
             reason.push_str(&format!(
                 " (note: the start Hessian had {} negative eigenvalues, not 1)",
                 self.initial_negative

@@ -97,7 +97,7 @@ fn band_out_of_budget_keeps_its_results() {
         ],
         d,
     );
-    assert_eq!(code, 1, "{out}\n{err}");
+    assert_eq!(code, 3, "{out}\n{err}");
     assert!(out.contains("NOT CONVERGED"), "{out}");
     assert!(out.contains("step budget of 5 iterations"), "{out}");
     let rec: Value =

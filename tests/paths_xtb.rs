@@ -2,20 +2,14 @@
 //! in tests/data/ (each prepared by a plain `xtb --opt tight`; see the comment lines).
 //!
 //! 1. Formaldehyde → trans-hydroxycarbene (1,2-H shift): `cairn band`, refinement by P-RFO
-//!    following the band tangent, exactly one imaginary mode, `cairn irc` whose two ends match
+//!    (`cairn saddle`) following the band tangent, exactly one imaginary mode, `cairn irc` whose two ends match
 //!    the reactant and product bond graphs, energies falling monotonically from the saddle.
 //! 2. Cl⁻ + CH3Cl identity SN2: `cairn scan` of the forming C–Cl bond gives a smooth one-peak
-//!    profile whose maximum refines to a first-order saddle with equal C–Cl bonds (the identity
+//!    profile whose maximum refines (`cairn saddle`) to a first-order saddle with equal C–Cl bonds (the identity
 //!    reaction's saddle is symmetric: a fact of the reaction, common practice).
 
-use cairn::algo::freq;
-use cairn::algo::saddle::{FollowMode, SaddleOptions, SaddleSearch, SaddleVerdict};
-use cairn::driver::{block_on, drive, Evaluator, System};
-use cairn::engine::{find_engine, Settings};
-use cairn::geom::Frame;
 use cairn::molecule::Molecule;
 use cairn::units::{ANGSTROM_PER_BOHR, KCALMOL_PER_HARTREE};
-use nalgebra::DVector;
 use serde_json::Value;
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -53,26 +47,36 @@ fn floats(v: &Value) -> Vec<f64> {
         .collect()
 }
 
-/// Refine with P-RFO following `mode`, through the store, and analyse the Hessian.
-fn refine(m: &Molecule, mode: DVector<f64>, store: &Path) -> (SaddleVerdict, freq::Modes) {
-    let engine = find_engine("xtb", &Settings::new()).unwrap();
-    let ev = Evaluator::local(engine, store, 2).unwrap();
-    let system = System::of(m).unwrap();
-    let opts = SaddleOptions {
-        follow: FollowMode::Vector(mode),
-        ..SaddleOptions::default()
-    };
-    let mut s = SaddleSearch::new(m.flat(), Frame::Molecule, opts);
-    let (v, _) = block_on(drive(&mut s, &ev, &system)).unwrap();
-    let modes = freq::analyze(
-        &v.hessian,
-        &v.x,
-        &m.masses(),
-        Frame::Molecule,
-        freq::DEFAULT_IMAG_THRESHOLD_CM1,
-    )
-    .unwrap();
-    (v, modes)
+/// Refine with `cairn saddle` (P-RFO) following the mode file a path command wrote; returns
+/// its JSON record and the refined geometry.
+fn refine(
+    guess: &Path,
+    mode: &Path,
+    prefix: &Path,
+    charge: &str,
+    store: &Path,
+) -> (Value, Molecule) {
+    let (code, stdout, stderr) = cairn(
+        &[
+            "saddle",
+            guess.to_str().unwrap(),
+            "--engine",
+            "xtb",
+            "--charge",
+            charge,
+            "--follow-file",
+            mode.to_str().unwrap(),
+            "--jobs",
+            "2",
+            "--out",
+            prefix.to_str().unwrap(),
+        ],
+        store,
+    );
+    assert_eq!(code, 0, "{stdout}\n{stderr}");
+    let rec = json(&prefix.with_extension("json"));
+    let m = cairn::xyz::read(&prefix.with_extension("xyz")).unwrap();
+    (rec, m)
 }
 
 #[test]
@@ -109,21 +113,22 @@ fn formaldehyde_to_hydroxycarbene_band_refine_irc() {
     let frames = cairn::xyz::read_frames(&out.join("band.xyz")).unwrap();
     assert_eq!(frames.len(), 10);
 
-    // Refine the highest image following the band tangent.
-    let mut guess = cairn::xyz::read(&out.join("saddle_guess.xyz")).unwrap();
-    guess.charge = 0;
-    guess.multiplicity = 1;
-    let mode = DVector::from_vec(floats(&band["saddle_guess"]["mode"]));
-    let (sv, modes) = refine(&guess, mode, &store);
-    assert!(sv.converged, "{}", sv.reason);
-    assert_eq!(sv.n_negative, 1, "{}", sv.reason);
-    assert_eq!(modes.n_imaginary, 1, "{:?}", modes.frequencies_cm1);
+    // Refine the highest image with `cairn saddle`, following the band tangent.
+    let ts = tmp.path().join("ts");
+    let (rec, _) = refine(
+        &out.join("saddle_guess.xyz"),
+        &out.join("saddle_guess_mode.txt"),
+        &ts,
+        "0",
+        &store,
+    );
+    assert_eq!(rec["converged"], true, "{rec}");
+    assert_eq!(rec["n_imaginary"], 1, "{}", rec["frequencies_cm1"]);
+    assert_eq!(rec["n_negative_eigenvalues"], 1);
     // The climbing image was close to it: within 1 kcal/mol.
-    assert!(((sv.energy - e[hi]) * KCALMOL_PER_HARTREE).abs() < 1.0);
-    let saddle_file = tmp.path().join("saddle.xyz");
-    let mut sm = guess.with_flat(&sv.x);
-    sm.comment = "refined saddle".into();
-    cairn::xyz::write(&saddle_file, &sm).unwrap();
+    let ets = rec["energy_hartree"].as_f64().unwrap();
+    assert!(((ets - e[hi]) * KCALMOL_PER_HARTREE).abs() < 1.0);
+    let saddle_file = ts.with_extension("xyz");
 
     // IRC from the refined saddle: its ends are the reactant and the product.
     let irc_out = tmp.path().join("irc");
@@ -243,16 +248,20 @@ fn sn2_bond_scan_peaks_at_a_symmetric_first_order_saddle() {
         top
     );
 
-    let mut guess = cairn::xyz::read(&out.join("saddle_guess.xyz")).unwrap();
-    guess.charge = -1;
-    guess.multiplicity = 1;
-    let mode = DVector::from_vec(floats(&scan["saddle_guess"]["mode"]));
-    let (sv, modes) = refine(&guess, mode, &store);
-    assert!(sv.converged, "{}", sv.reason);
-    assert_eq!(modes.n_imaginary, 1, "{:?}", modes.frequencies_cm1);
+    let ts = tmp.path().join("ts");
+    let (rec, sm) = refine(
+        &out.join("saddle_guess.xyz"),
+        &out.join("saddle_guess_mode.txt"),
+        &ts,
+        "-1",
+        &store,
+    );
+    assert_eq!(rec["converged"], true, "{rec}");
+    assert_eq!(rec["n_imaginary"], 1, "{}", rec["frequencies_cm1"]);
+    let x = sm.flat();
     let d = |i: usize, j: usize| {
         (0..3)
-            .map(|k| (sv.x[3 * i + k] - sv.x[3 * j + k]).powi(2))
+            .map(|k| (x[3 * i + k] - x[3 * j + k]).powi(2))
             .sum::<f64>()
             .sqrt()
             * ANGSTROM_PER_BOHR
@@ -264,7 +273,7 @@ fn sn2_bond_scan_peaks_at_a_symmetric_first_order_saddle() {
         d(0, 2)
     );
     // The saddle lies above the scan maximum by less than the scan's grid can hide (1 kcal/mol).
-    let es = sv.energy * KCALMOL_PER_HARTREE;
+    let es = rec["energy_hartree"].as_f64().unwrap() * KCALMOL_PER_HARTREE;
     assert!(
         es >= e[top] - 1e-3 && es - e[top] < 1.0,
         "saddle {es}, scan top {}",

@@ -5,8 +5,8 @@
 //! Also holds the pieces the path commands share (engine options, setting up the evaluator,
 //! writing records).
 //!
-//! Exit status: 0 converged; 1 error, or finished without converging (results kept);
-//! 2 usage error.
+//! Exit status: 0 converged; 1 error; 2 usage error; 3 finished without converging (results
+//! kept).
 
 use crate::driver::{block_on, drive, Evaluator, Stats, System};
 use crate::engine::{find_engine, Engine, Settings};
@@ -164,7 +164,7 @@ pub(crate) fn finish(name: &str, r: Result<(String, bool)>) -> i32 {
         }
         Ok((text, false)) => {
             print!("{text}");
-            1
+            3
         }
         Err(e) => {
             eprintln!("error: cairn {name}: {e}");
@@ -178,7 +178,7 @@ pub(crate) fn finish(name: &str, r: Result<(String, bool)>) -> i32 {
 /// Writes into --out: band.xyz (every image with its energy), saddle_guess.xyz (the highest
 /// image), saddle_guess_mode.txt (the band tangent there: the mode to follow when refining),
 /// band.json (the record). The product is aligned onto the reactant first (minimum RMSD).
-/// Exit status: 0 converged; 1 error or not converged (results kept); 2 usage error.
+/// Exit status: 0 converged; 1 error; 2 usage error; 3 not converged (results kept).
 #[derive(clap::Args, Debug)]
 pub struct Args {
     /// Reactant geometry (XYZ, Å).

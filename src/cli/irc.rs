@@ -2,8 +2,8 @@
 //! directions, each end minimised; with --reactant/--product, whether each end is one of them
 //! (bond graphs, or nearness on a model surface).
 //!
-//! Exit status: 0 both branches reached minima; 1 error, or a branch that ran out of steps
-//! (results kept); 2 usage error.
+//! Exit status: 0 both branches reached minima; 1 error; 2 usage error; 3 a branch ran out of
+//! steps or an end minimisation did not converge (results kept).
 
 use super::band::{cost_json, engine_json, finish, out_dir, session, write_json, EngineArgs};
 use crate::driver::{block_on, drive};
@@ -21,7 +21,7 @@ use std::time::Instant;
 /// Mass-weighted steepest descent (local quadratic approximation; Hessian at the saddle, then
 /// updated). Writes into --out: irc.xyz (reverse end → saddle → forward end, energies and arc
 /// lengths in the comments), forward_end.xyz and reverse_end.xyz (minimised ends), irc.json.
-/// Exit status: 0 both ends reached minima; 1 error or a branch out of steps; 2 usage error.
+/// Exit status: 0 both ends reached minima; 1 error; 2 usage error; 3 a branch out of steps.
 #[derive(clap::Args, Debug)]
 pub struct Args {
     /// Saddle geometry (XYZ, Å), e.g. refined by `cairn saddle`.

@@ -2,8 +2,8 @@
 //! --dihedral I J K L, or on a model surface --cartesian I AXIS): a relaxed scan; a second
 //! coordinate (--bond2 ... --from2 --to2 --points2) makes a 2-D grid.
 //!
-//! Exit status: 0 every point relaxed; 1 error, or some point not converged (results kept);
-//! 2 usage error.
+//! Exit status: 0 every point relaxed; 1 error; 2 usage error; 3 some point not converged
+//! (results kept).
 
 use super::band::{cost_json, engine_json, finish, out_dir, session, write_json, EngineArgs};
 use crate::driver::{block_on, drive};
@@ -23,7 +23,7 @@ use std::time::Instant;
 /// (surface units on model surfaces), angles in degrees. Writes into --out: scan.xyz (every
 /// relaxed point), profile.tsv, saddle_guess.xyz and saddle_guess_mode.txt (when the profile has
 /// an interior maximum), scan.json.
-/// Exit status: 0 every point relaxed; 1 error or some point not converged; 2 usage error.
+/// Exit status: 0 every point relaxed; 1 error; 2 usage error; 3 some point not converged.
 #[derive(clap::Args, Debug)]
 pub struct Args {
     /// Starting geometry (XYZ, Å).

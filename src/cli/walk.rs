@@ -1,8 +1,8 @@
 //! `cairn walk MINIMUM.xyz --engine E [--mode K]`: walk uphill from a minimum along one of its
 //! soft modes to a saddle (dimer min-mode following), without knowing the product.
 //!
-//! Exit status: 0 converged to a point with negative curvature; 1 error or not converged
-//! (results kept); 2 usage error.
+//! Exit status: 0 converged to a point with negative curvature; 1 error; 2 usage error;
+//! 3 not converged (results kept).
 
 use super::band::{cost_json, engine_json, finish, out_dir, session, write_json, EngineArgs};
 use crate::driver::{block_on, drive};
@@ -18,7 +18,7 @@ use std::time::Instant;
 /// The Hessian at the minimum picks the direction: mode K, counted from the softest (1).
 /// Writes into --out: walk.xyz (the dimer centres with energies), saddle_guess.xyz,
 /// saddle_guess_mode.txt (the dimer direction: the mode to follow when refining), walk.json.
-/// Exit status: 0 converged; 1 error or not converged (results kept); 2 usage error.
+/// Exit status: 0 converged; 1 error; 2 usage error; 3 not converged (results kept).
 #[derive(clap::Args, Debug)]
 pub struct Args {
     /// Minimum to start from (XYZ, Å).

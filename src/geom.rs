@@ -82,12 +82,16 @@ pub fn external_basis(x: &DVector<f64>, masses: Option<&[f64]>, frame: Frame) ->
     orthonormalize(cands, 1e-6, n3)
 }
 
-/// Modified Gram–Schmidt; drops vectors whose remaining norm is below `tol` times their own.
+/// Modified Gram–Schmidt; drops vectors whose remaining norm is below `tol` times the largest
+/// candidate's norm. (Comparing with the largest, not with the vector's own length, matters for
+/// linear molecules carrying rounding noise: the rotation about the axis is then a vector of
+/// length ~1e-16 that must be dropped, not normalised into a false direction.)
 pub fn orthonormalize(cands: Vec<DVector<f64>>, tol: f64, dim: usize) -> DMatrix<f64> {
+    let scale = cands.iter().map(|v| v.norm()).fold(0.0_f64, f64::max);
     let mut basis: Vec<DVector<f64>> = Vec::new();
     for mut v in cands {
         let norm0 = v.norm();
-        if norm0 == 0.0 {
+        if norm0 == 0.0 || norm0 <= tol * scale {
             continue;
         }
         for _ in 0..2 {
@@ -97,7 +101,7 @@ pub fn orthonormalize(cands: Vec<DVector<f64>>, tol: f64, dim: usize) -> DMatrix
             }
         }
         let nrm = v.norm();
-        if nrm > tol * norm0 {
+        if nrm > tol * scale {
             basis.push(v / nrm);
         }
     }
@@ -143,6 +147,19 @@ mod tests {
         assert_eq!(external_basis(&atom, None, Frame::Molecule).ncols(), 3);
         let pt = DVector::from_vec(vec![0.3, 0.1, 0.0]);
         assert_eq!(external_basis(&pt, None, Frame::Surface).ncols(), 1);
+    }
+
+    #[test]
+    fn noisy_linear_molecule_has_five_external_modes() {
+        // HCN along z with rounding noise of 1e-17 bohr off the axis.
+        let lin = DVector::from_vec(vec![
+            1e-17, -2e-17, -2.0, 0.0, 0.0, 0.0, -1e-17, 1e-17, 2.18,
+        ]);
+        let b = external_basis(&lin, Some(&[1.008, 12.0, 14.003]), Frame::Molecule);
+        assert_eq!(b.ncols(), 5);
+        // and the basis is orthonormal
+        let g = b.transpose() * &b;
+        assert!((g - DMatrix::identity(5, 5)).norm() < 1e-10);
     }
 
     #[test]

@@ -275,6 +275,7 @@ impl Plan {
                         deps.extend(modes);
                     }
                     StageKind::Verify => {
+                        deps.extend(saddle);
                         deps.extend(irc);
                         deps.extend(modes);
                         deps.extend(&ends_node);

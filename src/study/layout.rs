@@ -120,7 +120,9 @@ fn check_component(s: &str) -> std::result::Result<(), String> {
             .all(|c| c.is_ascii_alphanumeric() || matches!(c, '.' | '_' | '-'))
             || s.contains("..")
         {
-            return Err(format!("component \"{s}\" has characters outside [A-Za-z0-9._-]"));
+            return Err(format!(
+                "component \"{s}\" has characters outside [A-Za-z0-9._-]"
+            ));
         }
     }
     Ok(())

@@ -244,7 +244,11 @@ fn describe_task(ctx: &Ctx, t: &Task) -> String {
             .study
             .reactions
             .get(reaction)
-            .and_then(|r| r.stages.get(stage).map(|s| format!("{} {}", r.name, s.kind())))
+            .and_then(|r| {
+                r.stages
+                    .get(stage)
+                    .map(|s| format!("{} {}", r.name, s.kind()))
+            })
             .unwrap_or_default(),
     }
 }
@@ -267,7 +271,11 @@ fn task_record(ctx: &Ctx, t: &Task) -> TaskRecord {
         }
         Task::Stage { reaction, stage } => {
             let r = &ctx.study.reactions[reaction];
-            (r.name.clone(), r.stages[stage].kind().name().to_string(), None)
+            (
+                r.name.clone(),
+                r.stages[stage].kind().name().to_string(),
+                None,
+            )
         }
     };
     TaskRecord {
@@ -428,9 +436,9 @@ fn gather(ctx: &Ctx, ri: usize, inputs: &[(usize, Out)]) -> Inputs {
 
 fn base_molecule(r: &Reaction) -> &Molecule {
     match &r.start {
-        Start::Ends { reactant, .. } | Start::Drive { reactant, .. } | Start::Alone { reactant } => {
-            &reactant.molecule
-        }
+        Start::Ends { reactant, .. }
+        | Start::Drive { reactant, .. }
+        | Start::Alone { reactant } => &reactant.molecule,
         Start::Guess { guess, .. } => &guess.molecule,
     }
 }
@@ -478,8 +486,14 @@ async fn run_stage(
             let rm = m.with_flat(&ra.0);
             let pm = m.with_flat(&pa.0);
             let ends = align::prepare_endpoints(&rm, &pm, ("reactant", "product"))?;
-            let start = interp::idpp(&ends.reactant, &ends.product, images as usize)
-                .map_err(|e| Error::Algorithm(e.to_string()))?;
+            // IDPP needs more pair distances than internal coordinates to be of use; with 3
+            // atoms or fewer (and on model surfaces) the straight line is the start.
+            let start = if ends.frame == Frame::Surface || m.len() < 4 {
+                interp::linear(&ends.reactant, &ends.product, images as usize)
+            } else {
+                interp::idpp(&ends.reactant, &ends.product, images as usize)
+                    .map_err(|e| Error::Algorithm(format!("IDPP interpolation: {e}")))?
+            };
             let mut opts = neb::NebOptions::for_frame(ends.frame);
             opts.climbing = climbing;
             opts.max_iterations = max_steps as usize;
@@ -682,7 +696,10 @@ async fn run_stage(
                 .rev()
                 .map(|p| (p.x.clone(), format!("reverse: E = {:.10} Eh", p.energy)))
                 .collect();
-            frames.push((v.saddle.clone(), format!("saddle: E = {:.10} Eh", v.saddle_energy)));
+            frames.push((
+                v.saddle.clone(),
+                format!("saddle: E = {:.10} Eh", v.saddle_energy),
+            ));
             frames.extend(
                 v.forward
                     .points
@@ -756,7 +773,9 @@ fn judge(
     let kcal = |e: f64| e * KCALMOL_PER_HARTREE;
     let mut problems = Vec::new();
     if n_imag != 1 {
-        problems.push(format!("{n_imag} imaginary frequencies at the saddle, not 1"));
+        problems.push(format!(
+            "{n_imag} imaginary frequencies at the saddle, not 1"
+        ));
     }
     if !fwd.2 || !rev.2 {
         problems.push("an IRC end did not minimise to convergence".to_string());
@@ -833,9 +852,7 @@ fn judge(
 fn aligned_rmsd_angstrom(frame: Frame, a: &DVector<f64>, b: &DVector<f64>) -> f64 {
     match frame {
         Frame::Surface => align::rmsd(a, b),
-        Frame::Molecule => {
-            align::rmsd(a, &align::kabsch(a, b)) * crate::units::ANGSTROM_PER_BOHR
-        }
+        Frame::Molecule => align::rmsd(a, &align::kabsch(a, b)) * crate::units::ANGSTROM_PER_BOHR,
     }
 }
 

@@ -81,7 +81,7 @@ fn dependencies_follow_the_data() {
     };
     let deps = |n: petgraph::graph::NodeIndex| plan.tasks[n.index()].1.clone();
     // a-to-b: band needs both relaxed ends; irc needs refine and modes; verify needs irc,
-    // modes and the relaxed ends.
+    // refine, modes and the relaxed ends.
     let sp: Vec<_> = plan.reaction_species[0]
         .iter()
         .map(|(_, k)| {
@@ -103,7 +103,11 @@ fn dependencies_follow_the_data() {
     );
     let mut v = deps(node(0, StageKind::Verify));
     v.sort();
-    let mut want = vec![node(0, StageKind::Irc), node(0, StageKind::Modes)];
+    let mut want = vec![
+        node(0, StageKind::Refine),
+        node(0, StageKind::Irc),
+        node(0, StageKind::Modes),
+    ];
     want.extend(&sp);
     want.sort();
     assert_eq!(v, want);

@@ -2,6 +2,8 @@
 
 pub mod check;
 pub mod evaluate;
+pub mod run;
+pub mod status;
 
 use clap::{Parser, Subcommand};
 
@@ -47,6 +49,10 @@ pub enum Command {
     Saddle(saddle::Args),
     /// Harmonic frequencies, normal modes and reduced masses of a geometry.
     Modes(modes::Args),
+    /// Run a study: every reaction's stages, results in --dir.
+    Run(run::Args),
+    /// Show the state of a run directory.
+    Status(status::Args),
 }
 
 /// Parse arguments, run, and return the process exit status.
@@ -69,5 +75,7 @@ pub fn main() -> i32 {
         Command::Relax(a) => relax::run(a),
         Command::Saddle(a) => saddle::run(a),
         Command::Modes(a) => modes::run(a),
+        Command::Run(a) => run::run(&a),
+        Command::Status(a) => status::run(&a),
     }
 }

@@ -47,7 +47,7 @@ impl OutputDir {
             match c {
                 Component::Normal(s) => {
                     let s = s.to_str().ok_or_else(|| refuse("it is not UTF-8"))?;
-                    super::load::check_name(s).map_err(|m| refuse(&m))?;
+                    check_component(s).map_err(|m| refuse(&m))?;
                     out.push(s);
                 }
                 Component::ParentDir => return Err(refuse("it contains \"..\"")),
@@ -104,6 +104,28 @@ impl OutputDir {
         crate::xyz::write_atomic(&path, text)?;
         Ok(path)
     }
+}
+
+/// One path component: the reaction-name character set, any length up to 200.
+fn check_component(s: &str) -> std::result::Result<(), String> {
+    if s.len() > 200 {
+        return Err(format!("component \"{s}\" is longer than 200 characters"));
+    }
+    let short: String = s.chars().take(64).collect();
+    super::load::check_name(&short)?;
+    if s.chars().count() > 64 {
+        let rest: String = s.chars().skip(64).collect();
+        if !rest
+            .chars()
+            .all(|c| c.is_ascii_alphanumeric() || matches!(c, '.' | '_' | '-'))
+            || s.contains("..")
+        {
+            return Err(format!(
+                "component \"{s}\" has characters outside [A-Za-z0-9._-]"
+            ));
+        }
+    }
+    Ok(())
 }
 
 #[cfg(test)]

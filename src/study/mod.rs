@@ -21,6 +21,7 @@ pub mod plan;
 pub mod queue;
 pub mod raw;
 pub mod record;
+pub mod run;
 
 pub use layout::OutputDir;
 pub use load::{load, parse};

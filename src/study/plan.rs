@@ -148,8 +148,8 @@ pub fn estimate(stage: &Stage) -> Estimate {
             at_most: calls(2 * u64::from(max_steps), 0),
         },
         StageSpec::Verify { max_steps, .. } => Estimate {
-            typical: calls(2 * cap(max_steps, 30), 2),
-            at_most: calls(2 * u64::from(max_steps), 2),
+            typical: calls(2 * cap(max_steps, 30), 0),
+            at_most: calls(2 * u64::from(max_steps), 0),
         },
     }
 }
@@ -275,6 +275,7 @@ impl Plan {
                         deps.extend(modes);
                     }
                     StageKind::Verify => {
+                        deps.extend(saddle);
                         deps.extend(irc);
                         deps.extend(modes);
                         deps.extend(&ends_node);

@@ -14,6 +14,7 @@ pub mod molecule;
 pub mod path;
 pub mod store;
 pub mod study;
+pub mod thermo;
 pub mod units;
 pub mod xyz;
 

@@ -15,6 +15,7 @@ pub mod record;
 pub mod relax;
 pub mod saddle;
 pub mod scan;
+pub mod thermo;
 pub mod walk;
 
 #[derive(Parser, Debug)]
@@ -53,6 +54,8 @@ pub enum Command {
     Run(run::Args),
     /// Show the state of a run directory.
     Status(status::Args),
+    /// Ideal-gas RRHO thermochemistry from a geometry and vibrational wavenumbers (no engine).
+    Thermo(thermo::Args),
 }
 
 /// Parse arguments, run, and return the process exit status.
@@ -77,5 +80,6 @@ pub fn main() -> i32 {
         Command::Modes(a) => modes::run(a),
         Command::Run(a) => run::run(&a),
         Command::Status(a) => status::run(&a),
+        Command::Thermo(a) => thermo::run(a),
     }
 }

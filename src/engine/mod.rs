@@ -129,12 +129,41 @@ impl Engine for MullerBrown {
     }
 }
 
+/// Lennard-Jones argon (see [`model::lj_argon`]) as an engine: real atoms (Ar only), bohr,
+/// with the usual rigid-body projection.
+#[derive(Debug, Default, Clone)]
+pub struct LjArgon;
+
+impl Engine for LjArgon {
+    fn name(&self) -> &str {
+        "lj-argon"
+    }
+    fn identity(&self) -> String {
+        "model:lj-argon:eps=119.8K:sigma=3.405A:v1".into()
+    }
+    fn evaluate(&self, job: &Job, _attempt: usize) -> Result<Outcome, EngineFailure> {
+        if job.elements.len() < 2 || job.elements.iter().any(|e| e.z() != 18) {
+            return Err(EngineFailure {
+                kind: FailureKind::BadInput,
+                message: "the lj-argon surface takes two or more Ar atoms and nothing else".into(),
+                output: None,
+            });
+        }
+        Ok(Outcome {
+            answer: model::lj_argon::answer(&job.coords, job.quantity),
+            raw_output: String::new(),
+            remedies: vec![],
+            seconds: 0.0,
+        })
+    }
+}
+
 /// Settings of a level of theory: key → value (e.g. `method: gfn2`), as given in the study file
 /// or on the command line (`--set key=value`).
 pub type Settings = std::collections::BTreeMap<String, String>;
 
 /// Names of the built-in model surfaces [`find_engine`] knows.
-pub const MODEL_SURFACES: &[&str] = &["muller-brown"];
+pub const MODEL_SURFACES: &[&str] = &["muller-brown", "lj-argon"];
 
 /// Find an engine by name: built-in model surfaces first, then adapter files.
 ///
@@ -150,6 +179,14 @@ pub fn find_engine(name: &str, settings: &Settings) -> crate::Result<std::sync::
                 )));
             }
             Ok(std::sync::Arc::new(MullerBrown))
+        }
+        "lj-argon" => {
+            if let Some(k) = settings.keys().next() {
+                return Err(crate::Error::invalid(format!(
+                    "engine 'lj-argon' has no settings, but '{k}' was given"
+                )));
+            }
+            Ok(std::sync::Arc::new(LjArgon))
         }
         _ => adapter::load_engine(name, settings),
     }

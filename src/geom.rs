@@ -52,7 +52,12 @@ pub fn external_basis(x: &DVector<f64>, masses: Option<&[f64]>, frame: Frame) ->
         }
         Frame::Molecule => {
             let unit = vec![1.0; n];
-            let m: &[f64] = masses.unwrap_or(&unit);
+            // Masses of the wrong length (a caller's mistake) fall back to unit masses rather
+            // than index out of bounds.
+            let m: &[f64] = match masses {
+                Some(m) if m.len() == n => m,
+                _ => &unit,
+            };
             let com = center_of_mass(x, m);
             for k in 0..3 {
                 let mut v = DVector::zeros(n3);

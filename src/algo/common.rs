@@ -4,7 +4,7 @@
 
 use super::AlgoError;
 use crate::eval::{Answer, Quantity};
-use crate::geom::{center_of_mass, orthonormalize, Frame};
+use crate::geom::Frame;
 use nalgebra::{DMatrix, DVector};
 use serde::{Deserialize, Serialize};
 
@@ -123,53 +123,11 @@ pub fn rms(v: &DVector<f64>) -> f64 {
     }
 }
 
-/// Orthonormal basis (columns) of the external subspace, as `geom::external_basis` builds it
-/// (translations √m e_α and rotations √m (e_α × r) about the centre of mass, or the z of each
-/// point on a model surface), but robust for linear molecules whose coordinates carry rounding
-/// noise: a candidate vector whose norm is below 1e-6 of the largest candidate's (e.g. the
-/// rotation about the axis of a linear molecule, ~1e-16 instead of exactly 0) is dropped before
-/// orthonormalisation instead of being normalised into a spurious direction.
+/// Orthonormal basis (columns) of the external subspace: [`crate::geom::external_basis`], which
+/// is robust for linear molecules whose coordinates carry rounding noise (a candidate whose norm
+/// is below 1e-6 of the largest candidate's is dropped, not normalised into a false direction).
 pub fn external_basis(x: &DVector<f64>, masses: Option<&[f64]>, frame: Frame) -> DMatrix<f64> {
-    let n3 = x.len();
-    let n = n3 / 3;
-    let mut cands: Vec<DVector<f64>> = Vec::new();
-    match frame {
-        Frame::Surface => {
-            for i in 0..n {
-                let mut v = DVector::zeros(n3);
-                v[3 * i + 2] = 1.0;
-                cands.push(v);
-            }
-        }
-        Frame::Molecule => {
-            let unit = vec![1.0; n];
-            let m: &[f64] = match masses {
-                Some(m) if m.len() == n => m,
-                _ => &unit,
-            };
-            let com = center_of_mass(x, m);
-            for k in 0..3 {
-                let mut v = DVector::zeros(n3);
-                for i in 0..n {
-                    v[3 * i + k] = m[i].sqrt();
-                }
-                cands.push(v);
-            }
-            for k in 0..3 {
-                let (a, b) = ((k + 1) % 3, (k + 2) % 3);
-                let mut v = DVector::zeros(n3);
-                for i in 0..n {
-                    let s = m[i].sqrt();
-                    v[3 * i + b] += s * (x[3 * i + a] - com[a]);
-                    v[3 * i + a] -= s * (x[3 * i + b] - com[b]);
-                }
-                cands.push(v);
-            }
-        }
-    }
-    let biggest = cands.iter().fold(0.0_f64, |a, v| a.max(v.norm()));
-    cands.retain(|v| v.norm() > 1e-6 * biggest);
-    orthonormalize(cands, 1e-6, n3)
+    crate::geom::external_basis(x, masses, frame)
 }
 
 /// Orthonormal basis (columns) of the internal subspace: the complement of translations and

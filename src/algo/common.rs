@@ -266,6 +266,23 @@ pub fn first_non_finite(m: &DMatrix<f64>) -> Option<(usize, usize)> {
     None
 }
 
+/// Check a start geometry: a positive multiple of 3 coordinates, all finite. `who` names the
+/// algorithm, `what` the geometry (e.g. "the guess"), for the error message.
+pub fn check_start(x: &DVector<f64>, who: &str, what: &str) -> Result<(), super::AlgoError> {
+    let n = x.len();
+    if n == 0 || !n.is_multiple_of(3) {
+        return Err(super::AlgoError(format!(
+            "{who}: {n} coordinates is not a positive multiple of 3"
+        )));
+    }
+    if x.iter().any(|v| !v.is_finite()) {
+        return Err(super::AlgoError(format!(
+            "{who}: {what} contains a non-finite coordinate"
+        )));
+    }
+    Ok(())
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -239,16 +239,7 @@ impl Algorithm for Minimizer {
         let n = self.x.len();
         match std::mem::replace(&mut self.pending, Pending::Finished) {
             Pending::Start => {
-                if n == 0 || !n.is_multiple_of(3) {
-                    return Err(AlgoError(format!(
-                        "minimiser: {n} coordinates is not a positive multiple of 3"
-                    )));
-                }
-                if self.x.iter().any(|v| !v.is_finite()) {
-                    return Err(AlgoError(
-                        "minimiser: the start geometry contains a non-finite coordinate".into(),
-                    ));
-                }
+                super::common::check_start(&self.x, "minimiser", "the start geometry")?;
                 let mut pts = vec![Point::new(self.x.clone(), Quantity::Gradient)];
                 if self.opts.exact_initial_hessian {
                     pts.push(Point::new(self.x.clone(), Quantity::Hessian));

@@ -525,16 +525,7 @@ impl Algorithm for SaddleSearch {
         let n = self.x.len();
         match std::mem::replace(&mut self.pending, Pending::Finished) {
             Pending::Start => {
-                if n == 0 || !n.is_multiple_of(3) {
-                    return Err(AlgoError(format!(
-                        "saddle refinement: {n} coordinates is not a positive multiple of 3"
-                    )));
-                }
-                if self.x.iter().any(|v| !v.is_finite()) {
-                    return Err(AlgoError(
-                        "saddle refinement: the guess contains a non-finite coordinate".into(),
-                    ));
-                }
+                super::common::check_start(&self.x, "saddle refinement", "the guess")?;
                 let mut pts = vec![Point::new(self.x.clone(), Quantity::Gradient)];
                 pts.extend(self.hessian_points(&self.x));
                 self.pending = Pending::Initial;

@@ -22,6 +22,7 @@ pub mod queue;
 pub mod raw;
 pub mod record;
 pub mod run;
+mod stages;
 
 pub use layout::OutputDir;
 pub use load::{load, parse};

@@ -77,6 +77,82 @@ pub fn idpp_objective(x: &DVector<f64>, target: &[f64]) -> (f64, DVector<f64>) {
     (s, g)
 }
 
+/// Largest distance (bohr) of an atom of `x` from the line through its two farthest-apart atoms.
+fn off_line(x: &DVector<f64>) -> f64 {
+    let n = x.len() / 3;
+    let (mut far, mut pair) = (0.0, (0, 0));
+    for i in 0..n {
+        for j in i + 1..n {
+            let d = dist(x, i, j);
+            if d > far {
+                far = d;
+                pair = (i, j);
+            }
+        }
+    }
+    if far < 1e-9 {
+        return 0.0;
+    }
+    let at = |i: usize| nalgebra::Vector3::new(x[3 * i], x[3 * i + 1], x[3 * i + 2]);
+    let o = at(pair.0);
+    let u = (at(pair.1) - o) / far;
+    (0..n)
+        .map(|i| {
+            let v = at(i) - o;
+            (v - u * v.dot(&u)).norm()
+        })
+        .fold(0.0, f64::max)
+}
+
+/// Images closer than this (bohr) to one straight line count as collinear.
+const COLLINEAR_BOHR: f64 = 0.1;
+
+/// A band whose every image lies on one line (two linear ends on a common axis, e.g.
+/// HCN → HNC) cannot leave that line under IDPP or band forces: every force is along the
+/// axis by symmetry, so atoms pass through each other. Bow the interior images off the line,
+/// each atom by half its end-to-end travel times sin(πt), all towards one perpendicular
+/// direction; IDPP then finds a path around. Images that are not collinear are left as they are.
+fn bow_if_collinear(images: &mut [DVector<f64>], a: &DVector<f64>, b: &DVector<f64>) {
+    let m = images.len();
+    if m < 3 || images.iter().any(|x| off_line(x) > COLLINEAR_BOHR) {
+        return;
+    }
+    // The common axis: the direction of the longest pair in the first end.
+    let n = a.len() / 3;
+    let at =
+        |x: &DVector<f64>, i: usize| nalgebra::Vector3::new(x[3 * i], x[3 * i + 1], x[3 * i + 2]);
+    let (mut far, mut axis) = (0.0, nalgebra::Vector3::x());
+    for i in 0..n {
+        for j in i + 1..n {
+            let v = at(a, j) - at(a, i);
+            if v.norm() > far {
+                far = v.norm();
+                axis = v / far;
+            }
+        }
+    }
+    // A perpendicular: cross with the Cartesian axis least parallel to the molecular one.
+    let helper = [
+        nalgebra::Vector3::x(),
+        nalgebra::Vector3::y(),
+        nalgebra::Vector3::z(),
+    ]
+    .into_iter()
+    .min_by(|p, q| axis.dot(p).abs().total_cmp(&axis.dot(q).abs()))
+    .unwrap_or_else(nalgebra::Vector3::z);
+    let perp = axis.cross(&helper).normalize();
+    for (k, x) in images.iter_mut().enumerate().take(m - 1).skip(1) {
+        let t = k as f64 / (m - 1) as f64;
+        let s = (std::f64::consts::PI * t).sin();
+        for i in 0..n {
+            let travel = (at(b, i) - at(a, i)).norm();
+            for c in 0..3 {
+                x[3 * i + c] += 0.5 * travel * s * perp[c];
+            }
+        }
+    }
+}
+
 /// IDPP band between aligned ends `a` and `b` with `interior` images; ends included.
 /// Falls back to the linear path for fewer than two atoms (nothing to interpolate).
 pub fn idpp(
@@ -111,7 +187,9 @@ pub fn idpp(
             max_atom_step: 0.1,
         },
     };
-    let mut neb = Neb::new(lin, Frame::Molecule, opts)?;
+    let mut start = lin;
+    bow_if_collinear(&mut start, a, b);
+    let mut neb = Neb::new(start, Frame::Molecule, opts)?;
     let v = neb.relax_with(|k, x| idpp_objective(x, &targets[k]));
     Ok(v.images)
 }
@@ -134,6 +212,56 @@ mod tests {
             let fd = (idpp_objective(&xp, &target).0 - idpp_objective(&xm, &target).0) / (2.0 * h);
             assert!((fd - g[k]).abs() < 1e-7, "component {k}: {fd} vs {}", g[k]);
         }
+    }
+
+    // HCN → HNC from the demo's end geometries (GFN2-xTB minima, both linear): the straight
+    // line drives H through the C≡N bond; IDPP from the bowed start keeps C–N near its end
+    // lengths (1.16–1.17 Å) and H at least ~1 Å from both heavy atoms (common practice: a
+    // sensible start keeps bonded distances near their end values).
+    #[test]
+    fn idpp_leaves_the_line_for_linear_ends() {
+        let a_ang = [
+            0.26942730,
+            1.05034437,
+            -0.02803939,
+            0.00655462,
+            0.02555276,
+            -0.00068214,
+            -0.27598192,
+            -1.07589713,
+            0.02872154,
+        ];
+        let b_ang = [
+            -0.26109747,
+            -1.01787110,
+            0.02717251,
+            0.27441377,
+            1.06978379,
+            -0.02855834,
+            -0.01331629,
+            -0.05191269,
+            0.00138583,
+        ];
+        let to_bohr = 1.0 / crate::units::ANGSTROM_PER_BOHR;
+        let a = DVector::from_iterator(9, a_ang.iter().map(|v| v * to_bohr));
+        let b0 = DVector::from_iterator(9, b_ang.iter().map(|v| v * to_bohr));
+        let b = crate::path::align::kabsch(&a, &b0);
+        let lin = linear(&a, &b, 8);
+        assert!(lin.iter().all(|x| off_line(x) < COLLINEAR_BOHR));
+        let path = idpp(&a, &b, 8).unwrap();
+        let ang = |x: &DVector<f64>, i, j| dist(x, i, j) * crate::units::ANGSTROM_PER_BOHR;
+        let cn_lin = lin.iter().map(|x| ang(x, 1, 2)).fold(f64::MAX, f64::min);
+        assert!(cn_lin < 0.6, "the straight line squeezes C–N to {cn_lin} Å");
+        for (k, x) in path.iter().enumerate() {
+            let cn = ang(x, 1, 2);
+            assert!((1.05..1.30).contains(&cn), "image {k}: C–N {cn} Å");
+            let h_near = ang(x, 0, 1).min(ang(x, 0, 2));
+            assert!(h_near > 0.9, "image {k}: H {h_near} Å from a heavy atom");
+        }
+        // The middle image is bent: H well off the C–N line.
+        assert!(off_line(&path[5]) > 0.5, "{}", off_line(&path[5]));
+        assert_eq!(path[0], a);
+        assert_eq!(path[9], b);
     }
 
     // Rotation of a diatomic-like fragment: the linear path squeezes the bond through the

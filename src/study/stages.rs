@@ -208,9 +208,9 @@ pub(super) async fn run_stage(
             let rm = m.with_flat(&ra.0);
             let pm = m.with_flat(&pa.0);
             let ends = align::prepare_endpoints(&rm, &pm, ("reactant", "product"))?;
-            // IDPP needs more pair distances than internal coordinates to be of use; with 3
-            // atoms or fewer (and on model surfaces) the straight line is the start.
-            let start = if ends.frame == Frame::Surface || m.len() < 4 {
+            // On model surfaces the straight line is the start; molecules get IDPP (which
+            // bows collinear starts such as HCN → HNC off their axis).
+            let start = if ends.frame == Frame::Surface {
                 interp::linear(&ends.reactant, &ends.product, images as usize)
             } else {
                 interp::idpp(&ends.reactant, &ends.product, images as usize)

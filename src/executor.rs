@@ -74,6 +74,18 @@ impl LocalExecutor {
         }
     }
 
+    /// Another view of the same pool (same slots, shared with this one) with its own retry
+    /// budget: a study's stages may each set `retries`, yet all share one bounded pool.
+    pub fn sharing(&self, retries: usize) -> Self {
+        LocalExecutor {
+            slots: self.slots,
+            retries,
+            sem: self.sem.clone(),
+            running: self.running.clone(),
+            peak: self.peak.clone(),
+        }
+    }
+
     /// Set the retry budget: extra attempts after a retryable failure (0 = no retries).
     pub fn with_retries(mut self, retries: usize) -> Self {
         self.retries = retries;

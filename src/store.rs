@@ -233,6 +233,8 @@ const MAX_QUEUED: usize = 4096;
 /// One entry waiting to be written.
 struct Pending {
     key: Key,
+    /// The store's journal (`<store>/journal.log`), appended once the entry is on disk.
+    journal: PathBuf,
     entry_path: PathBuf,
     output_path: PathBuf,
     entry: Arc<Entry>,
@@ -345,6 +347,7 @@ fn write_batch(batch: Vec<Pending>) -> Result<usize> {
             .sync_all()
             .map_err(|e| Error::io(format!("cannot write {}", path.display()), e))?;
     }
+    fault_kill_in_write();
     for (t, path) in temps {
         t.persist(&path)
             .map_err(|e| Error::io(format!("cannot rename into {}", path.display()), e.error))?;
@@ -352,7 +355,53 @@ fn write_batch(batch: Vec<Pending>) -> Result<usize> {
     for d in &dirs {
         sync_dir(d)?;
     }
+    append_journal(&batch)?;
     Ok(written)
+}
+
+/// The store's journal file name: one line per entry written (its key in hex), appended after
+/// the entry is durably on disk. Lets a user (and the resume tests) see what was computed
+/// when, and that no finished evaluation was computed twice.
+pub const JOURNAL: &str = "journal.log";
+
+/// Append the batch's keys to the journal in one write (lines are short, so concurrent
+/// appenders never interleave within a line).
+fn append_journal(batch: &[Pending]) -> Result<()> {
+    let Some(first) = batch.first() else {
+        return Ok(());
+    };
+    let mut text = String::with_capacity(batch.len() * 65);
+    for p in batch {
+        text.push_str(&p.key.hex());
+        text.push('\n');
+    }
+    let mut f = std::fs::OpenOptions::new()
+        .create(true)
+        .append(true)
+        .open(&first.journal)
+        .map_err(|e| Error::io(format!("cannot open {}", first.journal.display()), e))?;
+    f.write_all(text.as_bytes())
+        .map_err(|e| Error::io(format!("cannot append to {}", first.journal.display()), e))
+}
+
+/// Test hook (fault injection): with `CAIRN_FAULT_KILL_IN_WRITE=N`, the process sends itself
+/// SIGKILL in the middle of its N-th store batch (temporary files written and synced, nothing
+/// renamed yet), the worst moment for a crash. Used by the resume tests; unset in normal use.
+fn fault_kill_in_write() {
+    use std::sync::atomic::{AtomicU64, Ordering};
+    static SEEN: AtomicU64 = AtomicU64::new(0);
+    let Some(n) = std::env::var("CAIRN_FAULT_KILL_IN_WRITE")
+        .ok()
+        .and_then(|v| v.parse::<u64>().ok())
+    else {
+        return;
+    };
+    if SEEN.fetch_add(1, Ordering::SeqCst) + 1 == n {
+        // SAFETY: kill(2) on our own pid with a valid signal number has no memory effects.
+        unsafe {
+            libc::kill(libc::getpid(), libc::SIGKILL);
+        }
+    }
 }
 
 /// A temp file beside `path` holding `bytes` (not yet synced).
@@ -533,6 +582,7 @@ impl Store {
     fn pending(&self, key: &Key, entry: Arc<Entry>, raw_output: String) -> Pending {
         Pending {
             key: *key,
+            journal: self.root.join(JOURNAL),
             entry_path: self.entry_path(key),
             output_path: self.output_path(key),
             entry,

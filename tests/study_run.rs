@@ -17,10 +17,8 @@ fn data(f: &str) -> PathBuf {
 
 fn run_mb(dir: &Path) -> run::RunReport {
     let s = study::load(&data("mb.yaml")).unwrap();
-    let opts = run::RunOptions {
-        dir: dir.to_path_buf(),
-        jobs: 2,
-    };
+    let mut opts = run::RunOptions::new(dir, 2);
+    opts.progress = cairn::study::progress::ProgressMode::Quiet;
     cairn::driver::block_on(run::run(&s, &opts)).unwrap()
 }
 
@@ -100,13 +98,30 @@ fn muller_brown_study_runs_verifies_and_resumes() {
     let first_runs: u64 = rep.summaries.iter().map(|s| s.engine_runs).sum();
     assert!(first_runs > 0);
 
-    // Again: everything replays from the store; no engine run, same verdicts and numbers.
+    // Again: every task has its marker, so nothing runs at all; same verdicts and numbers.
     let again = run_mb(&dir);
+    assert!(again.nothing_to_do());
+    assert_eq!(again.tasks_finished_earlier, 22);
     let runs: u64 = again.state.tasks.iter().map(|t| t.engine_runs).sum();
     assert_eq!(runs, 0, "a second run evaluates nothing anew");
     for (a, b) in rep.summaries.iter().zip(&again.summaries) {
         assert_eq!(a.status, b.status);
         assert_eq!(a.barrier_forward_kcal_mol, b.barrier_forward_kcal_mol);
+        assert_eq!(a.gradient_evaluations, b.gradient_evaluations);
+        assert_eq!(b.engine_runs, 0);
+    }
+
+    // Without the markers (deleted), every algorithm replays from the store: still no engine
+    // run, the same numbers, and now the answers come as store hits.
+    std::fs::remove_dir_all(dir.join("tasks")).unwrap();
+    let replay = run_mb(&dir);
+    assert_eq!(replay.tasks_run, 22);
+    let runs: u64 = replay.state.tasks.iter().map(|t| t.engine_runs).sum();
+    assert_eq!(runs, 0, "a replay evaluates nothing anew");
+    for (a, b) in rep.summaries.iter().zip(&replay.summaries) {
+        assert_eq!(a.status, b.status);
+        assert_eq!(a.barrier_forward_kcal_mol, b.barrier_forward_kcal_mol);
+        assert_eq!(a.imaginary_frequency_cm1, b.imaginary_frequency_cm1);
         assert!(b.store_hits > 0);
     }
 
@@ -129,10 +144,7 @@ fn a_held_lock_stops_a_second_runner() {
     std::fs::create_dir(&dir).unwrap();
     let _held = cairn::study::DirLock::acquire(&dir).unwrap();
     let s = study::load(&data("mb.yaml")).unwrap();
-    let opts = run::RunOptions {
-        dir: dir.clone(),
-        jobs: 1,
-    };
+    let opts = run::RunOptions::new(&dir, 1);
     let err = cairn::driver::block_on(run::run(&s, &opts))
         .unwrap_err()
         .to_string();

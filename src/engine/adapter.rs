@@ -321,6 +321,17 @@ pub fn list_adapters() -> Vec<Listed> {
 
 /// Load the adapter called `name` and apply `settings` (see [`super::find_engine`]).
 pub fn load_engine(name: &str, settings: &Settings) -> Result<Arc<dyn Engine>> {
+    load_engine_limited(name, settings, None)
+}
+
+/// [`load_engine`] with the adapter's time limit per run replaced by `timeout` when given
+/// (a study's `timeout` per stage); the limit does not change results, so it is not part of
+/// the engine's identity.
+pub fn load_engine_limited(
+    name: &str,
+    settings: &Settings,
+    timeout: Option<std::time::Duration>,
+) -> Result<Arc<dyn Engine>> {
     let Some(path) = find_adapter_file(name) else {
         let dirs: Vec<String> = search_dirs()
             .iter()
@@ -333,7 +344,11 @@ pub fn load_engine(name: &str, settings: &Settings) -> Result<Arc<dyn Engine>> {
         )));
     };
     let adapter = Adapter::load(&path)?;
-    Ok(Arc::new(AdapterEngine::new(Arc::new(adapter), settings)?))
+    let engine = AdapterEngine::new(Arc::new(adapter), settings)?;
+    Ok(Arc::new(match timeout {
+        Some(t) => engine.with_timeout(Some(t)),
+        None => engine,
+    }))
 }
 
 // ---------------------------------------------------------------------------------------------

@@ -171,6 +171,15 @@ pub const MODEL_SURFACES: &[&str] = &["muller-brown", "lj-argon"];
 /// separated), `./adapters`, and the `adapters/` directory shipped next to the executable's
 /// source tree (compiled in as a fallback).
 pub fn find_engine(name: &str, settings: &Settings) -> crate::Result<std::sync::Arc<dyn Engine>> {
+    find_engine_limited(name, settings, None)
+}
+
+/// [`find_engine`] with a time limit per run (adapters only; the model surfaces answer at once).
+pub fn find_engine_limited(
+    name: &str,
+    settings: &Settings,
+    timeout: Option<std::time::Duration>,
+) -> crate::Result<std::sync::Arc<dyn Engine>> {
     match name {
         "muller-brown" => {
             if let Some(k) = settings.keys().next() {
@@ -188,6 +197,6 @@ pub fn find_engine(name: &str, settings: &Settings) -> crate::Result<std::sync::
             }
             Ok(std::sync::Arc::new(LjArgon))
         }
-        _ => adapter::load_engine(name, settings),
+        _ => adapter::load_engine_limited(name, settings, timeout),
     }
 }

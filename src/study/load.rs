@@ -198,10 +198,20 @@ impl Checker<'_> {
             for (k, v) in &l.settings {
                 settings.insert(k.clone(), v.clone());
             }
+            let threads = l.threads.unwrap_or(1);
+            if !(1..=256).contains(&threads) {
+                return Err(self.err(
+                    &[key("levels"), key(name), key("threads")],
+                    None,
+                    Some(&format!("levels.{name}.threads")),
+                    format!("{threads} threads per engine run; give a number from 1 to 256"),
+                ));
+            }
             levels.push(Level {
                 name: name.clone(),
                 engine: l.engine.trim().to_string(),
                 settings,
+                threads,
             });
         }
         let level_names: Vec<&str> = levels.iter().map(|l| l.name.as_str()).collect();

@@ -18,9 +18,11 @@ pub mod locate;
 pub mod lock;
 pub mod model;
 pub mod plan;
+pub mod progress;
 pub mod queue;
 pub mod raw;
 pub mod record;
+mod resume;
 pub mod run;
 mod stages;
 

@@ -39,6 +39,8 @@ pub struct Level {
     pub name: String,
     pub engine: String,
     pub settings: Settings,
+    /// Threads per engine run (the pool runs `--jobs` runs at once, each with this many).
+    pub threads: u32,
 }
 
 impl Level {

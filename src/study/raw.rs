@@ -39,6 +39,9 @@ pub struct RawLevel {
     /// Adapter settings, e.g. `method: gfn2`. Scalars only; kept as written.
     #[serde(default, deserialize_with = "deserialize_settings")]
     pub settings: Vec<(String, String)>,
+    /// Threads each engine run of this level may use (default 1).
+    #[serde(default)]
+    pub threads: Option<u32>,
 }
 
 /// `defaults:` — what every reaction gets unless it says otherwise.

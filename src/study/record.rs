@@ -49,6 +49,10 @@ pub struct TaskRecord {
     pub evaluations: u64,
     pub engine_runs: u64,
     pub store_hits: u64,
+    /// Extra engine attempts after failures (crash, timeout, failure signature), each with the
+    /// adapter's next remedy.
+    #[serde(default)]
+    pub engine_retries: u64,
     pub wall_seconds: f64,
     /// Why it failed, or a note.
     #[serde(default, skip_serializing_if = "Option::is_none")]
@@ -162,6 +166,9 @@ pub struct Summary {
     pub hessian_evaluations: u64,
     pub engine_runs: u64,
     pub store_hits: u64,
+    /// Extra engine attempts after failures in this invocation (retries with remedies).
+    #[serde(default)]
+    pub engine_retries: u64,
     pub wall_seconds: f64,
     pub saddle_xyz: Option<String>,
     pub band_xyz: Option<String>,
@@ -186,6 +193,7 @@ impl Summary {
             hessian_evaluations: 0,
             engine_runs: 0,
             store_hits: 0,
+            engine_retries: 0,
             wall_seconds: 0.0,
             saddle_xyz: None,
             band_xyz: None,
@@ -218,6 +226,7 @@ mod tests {
             "hessian_evaluations",
             "engine_runs",
             "store_hits",
+            "engine_retries",
             "wall_seconds",
             "saddle_xyz",
             "band_xyz",
@@ -245,6 +254,7 @@ mod tests {
                     evaluations: 12,
                     engine_runs: 12,
                     store_hits: 0,
+                    engine_retries: 0,
                     wall_seconds: 0.4,
                     message: None,
                 },
@@ -256,6 +266,7 @@ mod tests {
                     evaluations: 130,
                     engine_runs: 120,
                     store_hits: 10,
+                    engine_retries: 3,
                     wall_seconds: 5.26,
                     message: None,
                 },

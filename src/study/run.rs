@@ -14,7 +14,9 @@ use super::layout::OutputDir;
 use super::lock::DirLock;
 use super::model::*;
 use super::plan::{Plan, Task};
+use super::progress::{Progress, ProgressMode};
 use super::record::{RunState, StateRecord, Summary, TaskRecord, Verdict, FORMAT};
+use super::resume;
 use super::stages;
 use crate::driver::{Evaluator, Stats};
 use crate::error::{Error, Result};
@@ -22,7 +24,7 @@ use crate::executor::LocalExecutor;
 use crate::store::Store;
 use nalgebra::DVector;
 use petgraph::graph::NodeIndex;
-use std::collections::HashMap;
+use std::collections::{HashMap, HashSet};
 use std::path::PathBuf;
 use std::sync::Arc;
 
@@ -33,10 +35,23 @@ pub struct RunOptions {
     pub dir: PathBuf,
     /// Engine jobs at once.
     pub jobs: usize,
+    /// How progress is shown.
+    pub progress: ProgressMode,
+}
+
+impl RunOptions {
+    /// Run into `dir` with `jobs` engine jobs at once, progress bars on a terminal.
+    pub fn new(dir: impl Into<PathBuf>, jobs: usize) -> RunOptions {
+        RunOptions {
+            dir: dir.into(),
+            jobs,
+            progress: ProgressMode::Auto,
+        }
+    }
 }
 
 /// What a finished task hands to the tasks after it.
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, serde::Serialize, serde::Deserialize)]
 pub(super) enum Out {
     Relaxed {
         x: DVector<f64>,
@@ -81,6 +96,17 @@ pub(super) struct Ctx {
 pub struct RunReport {
     pub state: StateRecord,
     pub summaries: Vec<Summary>,
+    /// Tasks run in this invocation (the rest were finished by an earlier one).
+    pub tasks_run: usize,
+    /// Tasks taken as finished from their markers.
+    pub tasks_finished_earlier: usize,
+}
+
+impl RunReport {
+    /// True when this invocation had nothing left to do.
+    pub fn nothing_to_do(&self) -> bool {
+        self.tasks_run == 0
+    }
 }
 
 /// Run a study into `opts.dir`.
@@ -90,24 +116,43 @@ pub async fn run(study: &Study, opts: &RunOptions) -> Result<RunReport> {
     let _lock = DirLock::acquire(&opts.dir)?;
     let out = OutputDir::new(&opts.dir);
     let store = Arc::new(Store::open(opts.dir.join("store"))?);
-    let executor: Arc<dyn crate::executor::Executor> = Arc::new(
-        LocalExecutor::new(opts.jobs.max(1)).with_retries(study.defaults.retries as usize),
-    );
+    let pool = LocalExecutor::new(opts.jobs.max(1));
+    // One evaluator per (level, retry budget, time limit) that some task uses; all share the
+    // store and the one bounded pool.
+    let plan = Plan::new(study);
+    let mut wanted: Vec<&Stage> = plan.species.iter().map(|sp| &sp.stage).collect();
+    for r in &study.reactions {
+        wanted.extend(r.stages.iter());
+    }
     let mut evaluators = HashMap::new();
-    for l in &study.levels {
-        let engine = crate::engine::find_engine(&l.engine, &l.settings)?;
+    let mut identities: HashMap<String, String> = HashMap::new();
+    for st in wanted {
+        let key = stages::evaluator_key(st);
+        if evaluators.contains_key(&key) {
+            continue;
+        }
+        let l = study
+            .level(&st.level)
+            .ok_or_else(|| Error::invalid(format!("no level '{}' in the study", st.level)))?;
+        let limit = st.timeout_seconds.map(std::time::Duration::from_secs_f64);
+        let engine = crate::engine::find_engine_limited(&l.engine, &l.settings, limit)?;
+        identities.insert(l.name.clone(), engine.identity());
+        let executor: Arc<dyn crate::executor::Executor> =
+            Arc::new(pool.sharing(st.retries as usize));
         evaluators.insert(
-            l.name.clone(),
-            Evaluator::new(engine, store.clone(), executor.clone()),
+            key,
+            Evaluator::new(engine, store.clone(), executor).with_threads(l.threads as usize),
         );
     }
-    let plan = Plan::new(study);
     let ctx = Arc::new(Ctx {
         study: study.clone(),
         plan,
         out,
         evaluators,
     });
+    let fingerprints = Arc::new(resume::fingerprints(&ctx, &|level| {
+        identities.get(level).cloned().unwrap_or_default()
+    }));
     let study_sha = {
         use sha2::{Digest, Sha256};
         hex::encode(Sha256::digest(study.source.as_bytes()))
@@ -125,28 +170,88 @@ pub async fn run(study: &Study, opts: &RunOptions) -> Result<RunReport> {
     };
     write_state(&ctx, &state)?;
 
+    let mut per_reaction: HashMap<String, u64> = HashMap::new();
+    for (t, _) in &ctx.plan.tasks {
+        match *t {
+            Task::Relax { species } => {
+                for (ri, _) in &ctx.plan.species[species].used_by {
+                    *per_reaction
+                        .entry(study.reactions[*ri].name.clone())
+                        .or_default() += 1;
+                }
+            }
+            Task::Stage { reaction, .. } => {
+                *per_reaction
+                    .entry(study.reactions[reaction].name.clone())
+                    .or_default() += 1
+            }
+        }
+    }
+    let mut progress = Progress::new(opts.progress, ctx.plan.tasks.len() as u64, per_reaction);
+
     let mut queue = ctx.plan.queue(study);
     let mut outputs: HashMap<usize, Out> = HashMap::new();
     let mut stats: HashMap<usize, Stats> = HashMap::new();
     let mut errors: HashMap<usize, String> = HashMap::new();
+    let mut ran: HashSet<usize> = HashSet::new();
+    let mut finished_earlier = 0usize;
     let mut running = tokio::task::JoinSet::new();
     loop {
+        let mut skipped_now = 0u64;
         while let Some(n) = queue.next_ready() {
-            let inputs: Vec<(usize, Out)> = ctx.plan.tasks[n.index()]
+            let i = n.index();
+            if let Some(m) = resume::load_marker(&ctx, i, &fingerprints[i]) {
+                // Finished by an earlier run with the same inputs: take its output as it is.
+                if let Some(r) = state.tasks.get_mut(i) {
+                    r.state = RunState::Done;
+                    r.evaluations = m.evaluations;
+                    r.wall_seconds = m.wall_seconds;
+                    r.message = Some("finished in an earlier run".into());
+                }
+                stats.insert(i, m.replayed_stats());
+                outputs.insert(i, m.out);
+                finished_earlier += 1;
+                skipped_now += 1;
+                let _ = queue.complete(n);
+                continue;
+            }
+            let inputs: Vec<(usize, Out)> = ctx.plan.tasks[i]
                 .1
                 .iter()
                 .filter_map(|d| outputs.get(&d.index()).map(|o| (d.index(), o.clone())))
                 .collect();
-            if let Some(r) = state.tasks.get_mut(n.index()) {
+            if let Some(r) = state.tasks.get_mut(i) {
                 r.state = RunState::Running;
+                progress.started(&r.reaction, &task_label(r));
             }
+            ran.insert(i);
             let c = ctx.clone();
+            let fp = fingerprints.clone();
             running.spawn(async move {
                 let t0 = std::time::Instant::now();
                 let res = run_task(&c, n, &inputs).await;
-                (n, res, t0.elapsed().as_secs_f64())
+                let secs = t0.elapsed().as_secs_f64();
+                // File the marker once the task's own files are written.
+                let res = match res {
+                    Ok((o, st)) => {
+                        let m = resume::Marker::new(
+                            &fp[n.index()],
+                            describe_task(&c, &c.plan.tasks[n.index()].0),
+                            &o,
+                            &st,
+                            secs,
+                        );
+                        match resume::save_marker(&c, n.index(), &m) {
+                            Ok(()) => Ok((o, st)),
+                            Err(e) => Err((e.to_string(), st)),
+                        }
+                    }
+                    Err(x) => Err(x),
+                };
+                (n, res, secs)
             });
         }
+        progress.skipped(skipped_now);
         let Some(joined) = running.join_next().await else {
             break;
         };
@@ -164,6 +269,14 @@ pub async fn run(study: &Study, opts: &RunOptions) -> Result<RunReport> {
                 if let Some(r) = state.tasks.get_mut(i) {
                     r.state = RunState::Done;
                     fill_counts(r, &st, secs);
+                    progress.ended(
+                        &r.reaction,
+                        &task_label(r),
+                        &format!(
+                            "done: {} evaluations ({} by the engine), {:.1} s",
+                            st.points, st.engine_runs, secs
+                        ),
+                    );
                 }
                 outputs.insert(i, o);
                 stats.insert(i, st);
@@ -174,6 +287,7 @@ pub async fn run(study: &Study, opts: &RunOptions) -> Result<RunReport> {
                     r.state = RunState::Failed;
                     r.message = Some(e.clone());
                     fill_counts(r, &st, secs);
+                    progress.ended(&r.reaction, &task_label(r), &format!("failed: {e}"));
                 }
                 stats.insert(i, st);
                 errors.insert(i, e.clone());
@@ -192,22 +306,69 @@ pub async fn run(study: &Study, opts: &RunOptions) -> Result<RunReport> {
         }
         write_state(&ctx, &state)?;
     }
+    progress.finish();
+    write_state(&ctx, &state)?;
 
     let mut summaries = Vec::new();
     for (ri, r) in study.reactions.iter().enumerate() {
-        let s = summarize(&ctx, ri, r, &outputs, &stats, &errors, &state);
-        let text = serde_json::to_string_pretty(&s).unwrap_or_default();
-        ctx.out
-            .write(&format!("{}/summary.json", r.name), &(text + "\n"))?;
+        let mine = reaction_tasks(&ctx, ri);
+        let s = summarize(&ctx, ri, r, &mine, &outputs, &stats, &errors, &state);
+        // A reaction none of whose tasks ran keeps the summary of the run that finished it
+        // (rewriting thousands of unchanged files would make a no-op resume slow).
+        let rel = format!("{}/summary.json", r.name);
+        let on_disk = ctx.out.join(&rel).ok().filter(|p| p.exists());
+        if mine.iter().any(|i| ran.contains(i)) || on_disk.is_none() {
+            let text = serde_json::to_string_pretty(&s).unwrap_or_default();
+            ctx.out.write(&rel, &(text + "\n"))?;
+        }
         summaries.push(s);
     }
-    Ok(RunReport { state, summaries })
+    Ok(RunReport {
+        state,
+        summaries,
+        tasks_run: ran.len(),
+        tasks_finished_earlier: finished_earlier,
+    })
+}
+
+/// "relax-ends CHN (hcn.xyz)" or "band".
+fn task_label(r: &TaskRecord) -> String {
+    match &r.species {
+        Some(s) => format!("{} {s}", r.stage),
+        None => r.stage.clone(),
+    }
+}
+
+/// The tasks of reaction `ri`: its species relaxations and its stages.
+fn reaction_tasks(ctx: &Ctx, ri: usize) -> Vec<usize> {
+    let mut mine: Vec<usize> = Vec::new();
+    for (_, k) in ctx.plan.reaction_species.get(ri).into_iter().flatten() {
+        if let Some(i) = ctx
+            .plan
+            .tasks
+            .iter()
+            .position(|(t, _)| *t == Task::Relax { species: *k })
+        {
+            mine.push(i);
+        }
+    }
+    mine.extend(
+        ctx.plan
+            .stage_task
+            .get(ri)
+            .into_iter()
+            .flatten()
+            .flatten()
+            .map(|n| n.index()),
+    );
+    mine
 }
 
 fn fill_counts(r: &mut TaskRecord, st: &Stats, secs: f64) {
     r.evaluations = st.points;
     r.engine_runs = st.engine_runs;
     r.store_hits = st.store_hits;
+    r.engine_retries = st.retries;
     r.wall_seconds = secs;
 }
 
@@ -271,6 +432,7 @@ fn task_record(ctx: &Ctx, t: &Task) -> TaskRecord {
         evaluations: 0,
         engine_runs: 0,
         store_hits: 0,
+        engine_retries: 0,
         wall_seconds: 0.0,
         message: None,
     }
@@ -292,43 +454,25 @@ async fn run_task(ctx: &Ctx, n: NodeIndex, inputs: &[(usize, Out)]) -> TaskResul
     }
 }
 
+#[allow(clippy::too_many_arguments)]
 fn summarize(
     ctx: &Ctx,
-    ri: usize,
+    _ri: usize,
     r: &Reaction,
+    mine: &[usize],
     outputs: &HashMap<usize, Out>,
     stats: &HashMap<usize, Stats>,
     errors: &HashMap<usize, String>,
     state: &StateRecord,
 ) -> Summary {
     let mut s = Summary::empty(&r.name);
-    // This reaction's tasks: its species and its stages.
-    let mut mine: Vec<usize> = Vec::new();
-    for (_, k) in ctx.plan.reaction_species.get(ri).into_iter().flatten() {
-        if let Some(i) = ctx
-            .plan
-            .tasks
-            .iter()
-            .position(|(t, _)| *t == Task::Relax { species: *k })
-        {
-            mine.push(i);
-        }
-    }
-    mine.extend(
-        ctx.plan
-            .stage_task
-            .get(ri)
-            .into_iter()
-            .flatten()
-            .flatten()
-            .map(|n| n.index()),
-    );
-    for i in &mine {
+    for i in mine {
         if let Some(st) = stats.get(i) {
             s.gradient_evaluations += st.gradient_evaluations;
             s.hessian_evaluations += st.hessian_evaluations;
             s.engine_runs += st.engine_runs;
             s.store_hits += st.store_hits;
+            s.engine_retries += st.retries;
         }
         if let Some(t) = state.tasks.get(*i) {
             s.wall_seconds += t.wall_seconds;

@@ -27,10 +27,18 @@ pub(super) fn frame_of(m: &Molecule) -> Frame {
     }
 }
 
-pub(super) fn ev<'a>(ctx: &'a Ctx, level: &str) -> Result<&'a Evaluator> {
+/// Which evaluator a stage uses: its level, with the stage's retry budget and time limit.
+pub(super) fn evaluator_key(stage: &Stage) -> String {
+    format!(
+        "{}|retries={}|timeout={:?}",
+        stage.level, stage.retries, stage.timeout_seconds
+    )
+}
+
+pub(super) fn ev<'a>(ctx: &'a Ctx, stage: &Stage) -> Result<&'a Evaluator> {
     ctx.evaluators
-        .get(level)
-        .ok_or_else(|| Error::invalid(format!("no evaluator for level '{level}'")))
+        .get(&evaluator_key(stage))
+        .ok_or_else(|| Error::invalid(format!("no evaluator for level '{}'", stage.level)))
 }
 
 pub(super) fn add(acc: &mut Stats, s: &Stats) {
@@ -80,7 +88,7 @@ pub(super) async fn relax_species(ctx: &Ctx, species: usize, acc: &mut Stats) ->
     let system = System::of(&m)?;
     let frame = frame_of(&m);
     let mut algo = Minimizer::new(m.flat(), frame, min_options(frame, max_steps));
-    let (v, st) = driver::drive(&mut algo, ev(ctx, &sp.level)?, &system).await?;
+    let (v, st) = driver::drive(&mut algo, ev(ctx, &sp.stage)?, &system).await?;
     add(acc, &st);
     let mut relaxed = m.with_flat(&v.x);
     relaxed.comment = format!(
@@ -181,7 +189,7 @@ pub(super) async fn run_stage(
     let m = base_molecule(r);
     let frame = frame_of(m);
     let system = System::of(m)?;
-    let e = ev(ctx, &st.level)?;
+    let e = ev(ctx, st)?;
     let inp = gather(ctx, ri, inputs);
     let write_xyz = |file: &str, frames: &[(DVector<f64>, String)]| -> Result<()> {
         let mols: Vec<(Molecule, String)> = frames

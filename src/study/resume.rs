@@ -11,7 +11,7 @@
 //! again — replayed from the store where its evaluations are already there. Changing one
 //! level therefore reruns exactly the tasks that use it and those after them.
 
-use super::model::{Geometry, StageSpec, Start};
+use super::model::{Geometry, StageKind, StageSpec, Start};
 use super::plan::Task;
 use super::run::{Ctx, Out};
 use crate::driver::Stats;
@@ -150,7 +150,7 @@ pub(super) fn fingerprints(ctx: &Ctx, identity: &dyn Fn(&str) -> String) -> Vec<
                 }
             }
         }
-        for d in deps {
+        for d in deps.iter().filter(|d| feeds(ctx, task, d.index())) {
             h.update(b"needs ");
             h.update(
                 out.get(d.index())
@@ -197,6 +197,23 @@ fn start_text(start: &Start) -> String {
         }
         Start::Alone { reactant } => mol("alone", reactant),
     }
+}
+
+/// Whether task `dep`'s output goes into `task`'s result. Every dependency does except one
+/// that is there for order only: the IRC waits for the normal modes (no IRC from a saddle that
+/// failed its frequency check) but does not use them, so a new modes level leaves it alone.
+fn feeds(ctx: &Ctx, task: &Task, dep: usize) -> bool {
+    let kind = |t: &Task| match *t {
+        Task::Stage { reaction, stage } => ctx
+            .study
+            .reactions
+            .get(reaction)
+            .and_then(|r| r.stages.get(stage))
+            .map(|s| s.kind()),
+        Task::Relax { .. } => None,
+    };
+    let producer = ctx.plan.tasks.get(dep).and_then(|(t, _)| kind(t));
+    !(kind(task) == Some(StageKind::Irc) && producer == Some(StageKind::Modes))
 }
 
 /// A stage's options as text (Rust's `Debug` prints every float exactly, shortest round trip).

@@ -421,13 +421,11 @@ fn a_reaction_whose_engine_keeps_failing_is_failed_and_the_others_go_on() {
         f.reason
     );
     // The reason points at the kept engine output, and that file exists.
-    let kept = f.reason.split("engine output kept in ").nth(1).map(|t| {
-        t.split(|c| c == ')' || c == ';')
-            .next()
-            .unwrap_or("")
-            .trim()
-            .to_string()
-    });
+    let kept = f
+        .reason
+        .split("engine output kept in ")
+        .nth(1)
+        .map(|t| t.split([')', ';']).next().unwrap_or("").trim().to_string());
     match kept {
         Some(p) => assert!(Path::new(&p).exists(), "{p}"),
         None => panic!("no engine output path in: {}", f.reason),

@@ -100,6 +100,9 @@ pub struct RunReport {
     pub tasks_run: usize,
     /// Tasks taken as finished from their markers.
     pub tasks_finished_earlier: usize,
+    /// Engine wall seconds of the runs made in this invocation (summed over jobs; with N
+    /// slots the ideal wall time is this ÷ N).
+    pub engine_seconds: f64,
 }
 
 impl RunReport {
@@ -328,6 +331,11 @@ pub async fn run(study: &Study, opts: &RunOptions) -> Result<RunReport> {
         summaries,
         tasks_run: ran.len(),
         tasks_finished_earlier: finished_earlier,
+        engine_seconds: ran
+            .iter()
+            .filter_map(|i| stats.get(i))
+            .map(|s| s.engine_seconds)
+            .sum(),
     })
 }
 

@@ -68,7 +68,10 @@ fn main() {
     let resume_s = t.elapsed().as_secs_f64();
     assert!(again.nothing_to_do(), "the second run had work to do");
 
-    println!("study runner benchmark ({})", if full { "full" } else { "quick" });
+    println!(
+        "study runner benchmark ({})",
+        if full { "full" } else { "quick" }
+    );
     println!();
     println!("| what | reactions | tasks | wall s | note |");
     println!("|---|---:|---:|---:|---|");

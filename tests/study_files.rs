@@ -97,6 +97,10 @@ const BAD: &[(&str, &str)] = &[
         "bad-timeout-unit.yaml:12:12: key \"defaults.timeout\": duration 600 needs a unit: s, m or h",
     ),
     (
+        "bad-threads.yaml",
+        "bad-threads.yaml:8:14: key \"levels.accurate.threads\": 0 threads per engine run; give a number from 1 to 256",
+    ),
+    (
         "bad-yaml-syntax.yaml",
         "bad-yaml-syntax.yaml:22:4: YAML syntax error: did not find expected '-' indicator",
     ),

@@ -178,6 +178,17 @@ fn demo_is_verified_and_a_killed_run_resumes_to_the_same_result() {
         let irc = s.irc_xyz.as_ref().expect("IRC path");
         assert!(a.join(irc).exists(), "{n}: {irc}");
     }
+    // DIR/summary.json holds the same summaries, in the study's order.
+    let all: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(a.join("summary.json")).unwrap()).unwrap();
+    let listed: Vec<Summary> = serde_json::from_value(all["reactions"].clone()).unwrap();
+    assert_eq!(
+        listed.iter().map(|s| s.name.as_str()).collect::<Vec<_>>(),
+        REACTIONS
+    );
+    for s in &listed {
+        assert_eq!(s, &sa[&s.name]);
+    }
     // hcn-to-hnc and hnc-uphill are one saddle seen from its two sides: the reverse barrier
     // of one is the forward barrier of the other (same relaxed HNC, same level).
     let rev = sa["hcn-to-hnc"].barrier_reverse_kcal_mol.unwrap();

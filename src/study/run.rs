@@ -326,6 +326,16 @@ pub async fn run(study: &Study, opts: &RunOptions) -> Result<RunReport> {
         }
         summaries.push(s);
     }
+    // DIR/summary.json: every reaction's summary in one file (the study's order).
+    let all = serde_json::json!({
+        "format": FORMAT,
+        "study": study.name,
+        "reactions": summaries,
+    });
+    ctx.out.write(
+        "summary.json",
+        &(serde_json::to_string_pretty(&all).unwrap_or_default() + "\n"),
+    )?;
     Ok(RunReport {
         state,
         summaries,

@@ -209,7 +209,7 @@ fn listing(dir: &Path) -> Vec<PathBuf> {
 }
 
 #[test]
-fn cairn_check_prints_one_error_and_writes_nothing() {
+fn cairn_check_and_run_print_one_error_and_write_nothing() {
     let before = listing(&data(""));
     let cwd = tempfile::tempdir().unwrap();
     for (file, want) in BAD {
@@ -220,6 +220,19 @@ fn cairn_check_prints_one_error_and_writes_nothing() {
         assert!(err.contains(want), "{file}: {err}");
         assert_eq!(err.lines().count(), 1, "{file}: {err}");
         assert!(out.stdout.is_empty(), "{file}: nothing on stdout");
+        // `cairn run` reads the study before it touches DIR: the same one error, exit 1, and
+        // DIR is not even created.
+        let run = Command::new(env!("CARGO_BIN_EXE_cairn"))
+            .arg("run")
+            .arg(data(file))
+            .args(["--dir", "out", "--progress", "none"])
+            .current_dir(cwd.path())
+            .output()
+            .unwrap();
+        assert_eq!(run.status.code(), Some(1), "{file}");
+        let err = String::from_utf8_lossy(&run.stderr);
+        assert!(err.contains(want), "{file}: {err}");
+        assert_eq!(err.lines().count(), 1, "{file}: {err}");
     }
     assert_eq!(
         listing(&data("")),

@@ -60,6 +60,19 @@ fn muller_brown_study_runs_verifies_and_resumes() {
         "{}",
         ab.reason
     );
+    // ... it says which end is wrong, and keeps that minimum: MC (reference-values.md §1.1:
+    // MC = (−0.050011, 0.466694)).
+    assert!(
+        ab.reason.contains(
+            "it joins the reactant to an unexpected minimum (saved as a-to-b/unexpected-minimum-1.xyz)"
+        ),
+        "{}",
+        ab.reason
+    );
+    let mc = cairn::xyz::read(&dir.join("a-to-b/unexpected-minimum-1.xyz")).unwrap();
+    assert!((mc.coords[0][0] + 0.050011).abs() < 1e-3, "{:?}", mc.coords);
+    assert!((mc.coords[0][1] - 0.466694).abs() < 1e-3, "{:?}", mc.coords);
+    assert!(dir.join("a-to-c/irc-ends.xyz").exists());
 
     // Uphill from MC along its softest mode: S2 (S2 − MC = 8.518878).
     let up = by("c-uphill");

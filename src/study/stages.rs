@@ -466,7 +466,26 @@ pub(super) async fn run_stage(
             let (v2, s2) = r2?;
             add(acc, &s1);
             add(acc, &s2);
-            Ok(judge(
+            write_xyz(
+                "irc-ends.xyz",
+                &[
+                    (
+                        v2.x.clone(),
+                        format!(
+                            "reverse IRC end, minimised: E = {:.10} Eh; {}",
+                            v2.energy, v2.reason
+                        ),
+                    ),
+                    (
+                        v1.x.clone(),
+                        format!(
+                            "forward IRC end, minimised: E = {:.10} Eh; {}",
+                            v1.energy, v1.reason
+                        ),
+                    ),
+                ],
+            )?;
+            let (out, unexpected) = judge(
                 m,
                 frame,
                 &inp,
@@ -475,7 +494,18 @@ pub(super) async fn run_stage(
                 (&v1.x, v1.energy, v1.converged),
                 (&v2.x, v2.energy, v2.converged),
                 same_species_rmsd_angstrom,
-            ))
+                &r.name,
+            );
+            for (file, x, energy) in unexpected {
+                let mut mm = m.with_flat(&x);
+                mm.comment = format!(
+                    "{}: an IRC end that is neither expected end, minimised: E = {energy:.10} Eh",
+                    r.name
+                );
+                ctx.out
+                    .write(&file, &crate::xyz::format_frame(&mm, &mm.comment))?;
+            }
+            Ok(out)
         }
     }
 }
@@ -489,6 +519,10 @@ fn same_end(m: &Molecule, frame: Frame, a: &DVector<f64>, b: &DVector<f64>) -> b
     }
 }
 
+/// An IRC end that is none of the minima the reaction should reach: (file relative to DIR,
+/// coordinates, energy).
+type Unexpected = (String, DVector<f64>, f64);
+
 #[allow(clippy::too_many_arguments)]
 fn judge(
     m: &Molecule,
@@ -499,9 +533,16 @@ fn judge(
     fwd: (&DVector<f64>, f64, bool),
     rev: (&DVector<f64>, f64, bool),
     rmsd_tol_angstrom: f64,
-) -> Out {
+    reaction: &str,
+) -> (Out, Vec<Unexpected>) {
     let kcal = |e: f64| e * KCALMOL_PER_HARTREE;
     let mut problems = Vec::new();
+    let mut unexpected: Vec<Unexpected> = Vec::new();
+    let keep = |x: &DVector<f64>, e: f64, unexpected: &mut Vec<Unexpected>| {
+        let file = format!("{reaction}/unexpected-minimum-{}.xyz", unexpected.len() + 1);
+        unexpected.push((file.clone(), x.clone(), e));
+        file
+    };
     if n_imag != 1 {
         problems.push(format!(
             "{n_imag} imaginary frequencies at the saddle, not 1"
@@ -522,7 +563,37 @@ fn judge(
             }
             connects = straight || swapped;
             if !connects {
-                problems.push("the IRC ends are not the reaction's reactant and product".into());
+                let is =
+                    |e: &(&DVector<f64>, f64, bool), x: &DVector<f64>| same_end(m, frame, e.0, x);
+                let what = |e: &(&DVector<f64>, f64, bool)| {
+                    if is(e, rx) {
+                        Some("the reactant")
+                    } else if is(e, px) {
+                        Some("the product")
+                    } else {
+                        None
+                    }
+                };
+                let detail = match (what(&rev), what(&fwd)) {
+                    // (Different known ends would have connected.)
+                    (Some(a), Some(_)) => format!("both ends are {a}"),
+                    (Some(known), None) => {
+                        let f = keep(fwd.0, fwd.1, &mut unexpected);
+                        format!("it joins {known} to an unexpected minimum (saved as {f})")
+                    }
+                    (None, Some(known)) => {
+                        let f = keep(rev.0, rev.1, &mut unexpected);
+                        format!("it joins {known} to an unexpected minimum (saved as {f})")
+                    }
+                    (None, None) => {
+                        let f1 = keep(rev.0, rev.1, &mut unexpected);
+                        let f2 = keep(fwd.0, fwd.1, &mut unexpected);
+                        format!("it joins two unexpected minima (saved as {f1} and {f2})")
+                    }
+                };
+                problems.push(format!(
+                    "the IRC ends are not the reaction's reactant and product: {detail}"
+                ));
             }
         }
         (Some((rx, _)), None) => {
@@ -536,7 +607,11 @@ fn judge(
             if !distinct {
                 problems.push("both IRC ends are the same species".into());
             } else if !reaches_reactant {
-                problems.push("neither IRC end is the reactant".into());
+                let f1 = keep(rev.0, rev.1, &mut unexpected);
+                let f2 = keep(fwd.0, fwd.1, &mut unexpected);
+                problems.push(format!(
+                    "neither IRC end is the reactant: it joins two unexpected minima (saved as {f1} and {f2})"
+                ));
             }
         }
         _ => {
@@ -569,14 +644,17 @@ fn judge(
     } else {
         problems.join("; ")
     };
-    Out::Verified {
-        status,
-        reason,
-        connects,
-        forward_kcal: Some(kcal(e_ts - e_r)),
-        reverse_kcal: Some(kcal(e_ts - e_p)),
-        reaction_kcal: Some(kcal(e_p - e_r)),
-    }
+    (
+        Out::Verified {
+            status,
+            reason,
+            connects,
+            forward_kcal: Some(kcal(e_ts - e_r)),
+            reverse_kcal: Some(kcal(e_ts - e_p)),
+            reaction_kcal: Some(kcal(e_p - e_r)),
+        },
+        unexpected,
+    )
 }
 
 fn aligned_rmsd_angstrom(frame: Frame, a: &DVector<f64>, b: &DVector<f64>) -> f64 {

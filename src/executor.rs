@@ -7,11 +7,13 @@
 //! most `slots` engine processes in total.
 
 use crate::engine::{Engine, EngineFailure, FailureKind, Job, Outcome};
+use std::collections::BinaryHeap;
 use std::future::Future;
 use std::pin::Pin;
 use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::Arc;
-use tokio::sync::Semaphore;
+use std::sync::Mutex;
+use tokio::sync::oneshot;
 
 /// A boxed future (executors are used as `Arc<dyn Executor>`).
 pub type BoxFuture<'a, T> = Pin<Box<dyn Future<Output = T> + Send + 'a>>;
@@ -56,7 +58,7 @@ pub fn is_retryable(kind: &FailureKind) -> bool {
 pub struct LocalExecutor {
     slots: usize,
     retries: usize,
-    sem: Arc<Semaphore>,
+    sem: Arc<Slots>,
     running: Arc<AtomicUsize>,
     peak: Arc<AtomicUsize>,
 }
@@ -68,7 +70,7 @@ impl LocalExecutor {
         LocalExecutor {
             slots,
             retries: 2,
-            sem: Arc::new(Semaphore::new(slots)),
+            sem: Arc::new(Slots::new(slots)),
             running: Arc::new(AtomicUsize::new(0)),
             peak: Arc::new(AtomicUsize::new(0)),
         }
@@ -125,8 +127,13 @@ impl Executor for LocalExecutor {
                 let running = self.running.clone();
                 let peak = self.peak.clone();
                 let retries = self.retries;
+                // Smaller batches first: a lone request is usually one step of a sequential
+                // chain (a scan point, an IRC step, a P-RFO step) that holds up everything
+                // after it, while a big batch (band images, finite differences) can fill
+                // whatever slots are left.
+                let priority = usize::MAX - n;
                 set.spawn(async move {
-                    let report = match sem.acquire_owned().await {
+                    let report = match sem.acquire(priority).await {
                         Ok(permit) => {
                             let engine_name = engine.name().to_string();
                             let joined = tokio::task::spawn_blocking(move || {
@@ -169,6 +176,136 @@ impl Executor for LocalExecutor {
                 })
                 .collect()
         })
+    }
+}
+
+/// A counting pool of slots whose waiters are served by priority (highest first; first come
+/// first served among equals), unlike a FIFO semaphore.
+#[derive(Debug)]
+pub struct Slots {
+    state: Mutex<SlotState>,
+}
+
+#[derive(Debug)]
+struct SlotState {
+    free: usize,
+    seq: u64,
+    waiters: BinaryHeap<Waiter>,
+}
+
+#[derive(Debug)]
+struct Waiter {
+    priority: usize,
+    /// Arrival order (smaller = earlier).
+    seq: u64,
+    tx: oneshot::Sender<()>,
+}
+
+impl PartialEq for Waiter {
+    fn eq(&self, o: &Self) -> bool {
+        self.priority == o.priority && self.seq == o.seq
+    }
+}
+impl Eq for Waiter {}
+impl PartialOrd for Waiter {
+    fn partial_cmp(&self, o: &Self) -> Option<std::cmp::Ordering> {
+        Some(self.cmp(o))
+    }
+}
+impl Ord for Waiter {
+    fn cmp(&self, o: &Self) -> std::cmp::Ordering {
+        self.priority
+            .cmp(&o.priority)
+            .then_with(|| o.seq.cmp(&self.seq))
+    }
+}
+
+/// One slot, held until dropped.
+#[derive(Debug)]
+pub struct SlotPermit {
+    slots: Arc<Slots>,
+}
+
+impl Drop for SlotPermit {
+    fn drop(&mut self) {
+        self.slots.release();
+    }
+}
+
+struct WaitGuard {
+    rx: Option<oneshot::Receiver<()>>,
+    slots: Arc<Slots>,
+}
+
+impl Drop for WaitGuard {
+    fn drop(&mut self) {
+        if let Some(mut rx) = self.rx.take() {
+            rx.close();
+            if rx.try_recv().is_ok() {
+                self.slots.release();
+            }
+        }
+    }
+}
+
+impl Slots {
+    pub fn new(n: usize) -> Slots {
+        Slots {
+            state: Mutex::new(SlotState {
+                free: n,
+                seq: 0,
+                waiters: BinaryHeap::new(),
+            }),
+        }
+    }
+
+    fn lock(&self) -> std::sync::MutexGuard<'_, SlotState> {
+        self.state.lock().unwrap_or_else(|e| e.into_inner())
+    }
+
+    /// Wait for a slot. Err only if the pool went away while waiting.
+    pub async fn acquire(self: &Arc<Self>, priority: usize) -> Result<SlotPermit, ()> {
+        let rx = {
+            let mut st = self.lock();
+            if st.free > 0 && st.waiters.is_empty() {
+                st.free -= 1;
+                return Ok(SlotPermit {
+                    slots: self.clone(),
+                });
+            }
+            let (tx, rx) = oneshot::channel();
+            st.seq += 1;
+            let seq = st.seq;
+            st.waiters.push(Waiter { priority, seq, tx });
+            rx
+        };
+        // The releaser hands its slot over by sending; the permit is then ours. If this
+        // future is dropped after a hand-over but before it saw it, the guard gives the slot
+        // back.
+        let mut guard = WaitGuard {
+            rx: Some(rx),
+            slots: self.clone(),
+        };
+        let got = match guard.rx.as_mut() {
+            Some(rx) => rx.await,
+            None => return Err(()),
+        };
+        guard.rx = None;
+        got.map_err(|_| ())?;
+        Ok(SlotPermit {
+            slots: self.clone(),
+        })
+    }
+
+    /// Give a slot back: to the best waiter still waiting, else to the pool.
+    fn release(&self) {
+        let mut st = self.lock();
+        while let Some(w) = st.waiters.pop() {
+            if w.tx.send(()).is_ok() {
+                return;
+            }
+        }
+        st.free += 1;
     }
 }
 
@@ -227,5 +364,57 @@ pub fn run_with_retries(engine: &dyn Engine, job: &Job, retries: usize) -> RunRe
                 attempt += 1;
             }
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn slots_serve_waiters_by_priority_then_arrival() {
+        let rt = tokio::runtime::Builder::new_current_thread()
+            .build()
+            .unwrap();
+        rt.block_on(async {
+            let slots = Arc::new(Slots::new(1));
+            let held = slots.acquire(0).await.unwrap();
+            let order = Arc::new(Mutex::new(Vec::new()));
+            let mut set = tokio::task::JoinSet::new();
+            for (name, prio) in [("a", 1), ("b", 5), ("c", 3), ("d", 5)] {
+                let s = slots.clone();
+                let o = order.clone();
+                set.spawn(async move {
+                    let _p = s.acquire(prio).await.unwrap();
+                    o.lock().unwrap().push(name);
+                    tokio::task::yield_now().await;
+                });
+                // Let each waiter queue before the next arrives.
+                tokio::task::yield_now().await;
+            }
+            drop(held);
+            while set.join_next().await.is_some() {}
+            assert_eq!(*order.lock().unwrap(), ["b", "d", "c", "a"]);
+            // Every slot came back.
+            assert_eq!(slots.lock().free, 1);
+        });
+    }
+
+    #[test]
+    fn a_waiter_dropped_after_the_hand_over_returns_the_slot() {
+        let rt = tokio::runtime::Builder::new_current_thread()
+            .build()
+            .unwrap();
+        rt.block_on(async {
+            let slots = Arc::new(Slots::new(1));
+            let held = slots.acquire(0).await.unwrap();
+            let s = slots.clone();
+            let waiter = tokio::spawn(async move { s.acquire(1).await.map(|_| ()) });
+            tokio::task::yield_now().await;
+            waiter.abort();
+            drop(held);
+            let _ = waiter.await;
+            assert_eq!(slots.lock().free, 1, "the slot is not lost");
+        });
     }
 }

@@ -371,12 +371,15 @@ pub fn run_with_retries(engine: &dyn Engine, job: &Job, retries: usize) -> RunRe
 mod tests {
     use super::*;
 
+    fn rt() -> tokio::runtime::Runtime {
+        tokio::runtime::Builder::new_current_thread()
+            .build()
+            .unwrap()
+    }
+
     #[test]
     fn slots_serve_waiters_by_priority_then_arrival() {
-        let rt = tokio::runtime::Builder::new_current_thread()
-            .build()
-            .unwrap();
-        rt.block_on(async {
+        rt().block_on(async {
             let slots = Arc::new(Slots::new(1));
             let held = slots.acquire(0).await.unwrap();
             let order = Arc::new(Mutex::new(Vec::new()));
@@ -402,10 +405,7 @@ mod tests {
 
     #[test]
     fn a_waiter_dropped_after_the_hand_over_returns_the_slot() {
-        let rt = tokio::runtime::Builder::new_current_thread()
-            .build()
-            .unwrap();
-        rt.block_on(async {
+        rt().block_on(async {
             let slots = Arc::new(Slots::new(1));
             let held = slots.acquire(0).await.unwrap();
             let s = slots.clone();

@@ -176,8 +176,9 @@ pub async fn run(study: &Study, opts: &RunOptions) -> Result<RunReport> {
     let mut per_reaction: HashMap<String, u64> = HashMap::new();
     for (t, _) in &ctx.plan.tasks {
         match *t {
+            // A shared species shows under the first reaction that uses it (as in state.json).
             Task::Relax { species } => {
-                for (ri, _) in &ctx.plan.species[species].used_by {
+                if let Some((ri, _)) = ctx.plan.species[species].used_by.first() {
                     *per_reaction
                         .entry(study.reactions[*ri].name.clone())
                         .or_default() += 1;

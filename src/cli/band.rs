@@ -9,7 +9,7 @@
 //! kept).
 
 use crate::driver::{block_on, drive, Evaluator, Stats, System};
-use crate::engine::{find_engine, Engine, Settings};
+use crate::engine::Engine;
 use crate::error::{Error, Result};
 use crate::geom::Frame;
 use crate::molecule::Molecule;
@@ -25,31 +25,11 @@ use std::time::Instant;
 /// Engine options shared by the path commands.
 #[derive(clap::Args, Debug, Clone)]
 pub struct EngineArgs {
-    /// Engine name: an adapter (e.g. xtb) or a built-in model surface (muller-brown).
-    #[arg(long)]
-    pub engine: String,
-    /// Engine setting, repeatable (e.g. --set method=gfn2).
-    #[arg(long = "set", value_name = "KEY=VALUE", value_parser = parse_setting)]
-    pub set: Vec<(String, String)>,
-    /// Total charge.
-    #[arg(long, default_value_t = 0, allow_negative_numbers = true)]
-    pub charge: i32,
-    /// Spin multiplicity 2S+1 (1 singlet, 2 doublet, ...).
-    #[arg(long, default_value_t = 1)]
-    pub multiplicity: u32,
-    /// Evaluation store directory (default: $CAIRN_STORE, else ./.cairn-store).
-    #[arg(long, value_name = "DIR")]
-    pub store: Option<PathBuf>,
+    #[command(flatten)]
+    pub choice: crate::cli::evaluate::EngineChoice,
     /// Engine jobs run at once (parallel slots).
     #[arg(long, default_value_t = 2, value_parser = clap::value_parser!(u64).range(1..))]
     pub jobs: u64,
-}
-
-fn parse_setting(s: &str) -> std::result::Result<(String, String), String> {
-    match s.split_once('=') {
-        Some((k, v)) if !k.trim().is_empty() => Ok((k.trim().to_string(), v.trim().to_string())),
-        _ => Err(format!("expected KEY=VALUE, got '{s}'")),
-    }
 }
 
 /// What a path command needs to evaluate: engine, evaluator, system, frame.
@@ -65,16 +45,8 @@ pub(crate) struct Session {
 /// Set charge and multiplicity on `m` (read from `file`), check them, find the engine and
 /// open the store.
 pub(crate) fn session(args: &EngineArgs, m: &mut Molecule, file: &Path) -> Result<Session> {
-    m.charge = args.charge;
-    m.multiplicity = args.multiplicity;
-    let system = System::of(m).map_err(|e| {
-        Error::invalid(format!(
-            "{}: {e} (set them with --charge and --multiplicity)",
-            file.display()
-        ))
-    })?;
-    let settings: Settings = args.set.iter().cloned().collect();
-    let engine = find_engine(&args.engine, &settings)?;
+    let system = args.choice.system_of(m, file)?;
+    let engine = args.choice.find()?;
     let surface = engine.is_model() || m.is_model_surface();
     if engine.is_model() != m.is_model_surface() {
         return Err(Error::invalid(format!(
@@ -85,7 +57,7 @@ pub(crate) fn session(args: &EngineArgs, m: &mut Molecule, file: &Path) -> Resul
             } else {
                 "holds real atoms"
             },
-            args.engine,
+            args.choice.engine,
             if engine.is_model() {
                 "is a model surface (give one pseudo-atom X)"
             } else {
@@ -94,7 +66,7 @@ pub(crate) fn session(args: &EngineArgs, m: &mut Molecule, file: &Path) -> Resul
         )));
     }
     let jobs = usize::try_from(args.jobs).unwrap_or(1).max(1);
-    let store = crate::cli::evaluate::store_dir(args.store.as_deref());
+    let store = args.choice.store_dir();
     let ev = Evaluator::local(engine.clone(), &store, jobs)?;
     Ok(Session {
         engine,

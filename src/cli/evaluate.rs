@@ -23,6 +23,23 @@ pub const DEFAULT_STORE: &str = ".cairn-store";
 pub struct Args {
     /// Geometry file (XYZ, Å; a pseudo-atom X line for model surfaces such as muller-brown).
     pub molecule: PathBuf,
+    #[command(flatten)]
+    pub choice: EngineChoice,
+    /// Also compute the Cartesian Hessian.
+    #[arg(long)]
+    pub hessian: bool,
+    /// Print one JSON object instead of text.
+    #[arg(long)]
+    pub json: bool,
+    /// Engine jobs run at once (the gradient and the Hessian run side by side with 2).
+    #[arg(long, default_value_t = 1, value_parser = clap::value_parser!(u64).range(1..))]
+    pub jobs: u64,
+}
+
+/// The engine options every single-geometry and path command shares: which engine, its
+/// settings, the electronic state, and where the store is.
+#[derive(clap::Args, Debug, Clone)]
+pub struct EngineChoice {
     /// Engine name: an adapter (e.g. xtb) or a built-in model surface (muller-brown).
     #[arg(long)]
     pub engine: String,
@@ -35,18 +52,45 @@ pub struct Args {
     /// Spin multiplicity 2S+1 (1 singlet, 2 doublet, ...).
     #[arg(long, default_value_t = 1)]
     pub multiplicity: u32,
-    /// Also compute the Cartesian Hessian.
-    #[arg(long)]
-    pub hessian: bool,
     /// Evaluation store directory (default: $CAIRN_STORE, else ./.cairn-store).
     #[arg(long, value_name = "DIR")]
     pub store: Option<PathBuf>,
-    /// Print one JSON object instead of text.
-    #[arg(long)]
-    pub json: bool,
-    /// Engine jobs run at once (the gradient and the Hessian run side by side with 2).
-    #[arg(long, default_value_t = 1, value_parser = clap::value_parser!(u64).range(1..))]
-    pub jobs: u64,
+}
+
+impl EngineChoice {
+    /// Put this charge and multiplicity on `m` (read from `file`) and check they fit it.
+    pub fn system_of(&self, m: &mut Molecule, file: &Path) -> Result<System> {
+        m.charge = self.charge;
+        m.multiplicity = self.multiplicity;
+        System::of(m).map_err(|e| {
+            Error::invalid(format!(
+                "{}: {e} (set them with --charge and --multiplicity)",
+                file.display()
+            ))
+        })
+    }
+
+    /// The engine with its settings.
+    pub fn find(&self) -> Result<std::sync::Arc<dyn crate::engine::Engine>> {
+        let settings: Settings = self.set.iter().cloned().collect();
+        find_engine(&self.engine, &settings)
+    }
+
+    /// The store directory: --store, else $CAIRN_STORE, else ./.cairn-store.
+    pub fn store_dir(&self) -> PathBuf {
+        store_dir(self.store.as_deref())
+    }
+}
+
+/// Run `execute`-style work and turn an error into a message on stderr and exit status 1.
+pub fn exit_status(r: Result<i32>) -> i32 {
+    match r {
+        Ok(code) => code,
+        Err(e) => {
+            eprintln!("error: {e}");
+            1
+        }
+    }
 }
 
 fn parse_setting(s: &str) -> std::result::Result<(String, String), String> {
@@ -83,18 +127,10 @@ pub fn store_dir(arg: Option<&Path>) -> PathBuf {
 
 fn execute(args: &Args) -> Result<String> {
     let mut molecule: Molecule = crate::xyz::read(&args.molecule)?;
-    molecule.charge = args.charge;
-    molecule.multiplicity = args.multiplicity;
-    let system = System::of(&molecule).map_err(|e| {
-        Error::invalid(format!(
-            "{}: {e} (set them with --charge and --multiplicity)",
-            args.molecule.display()
-        ))
-    })?;
-    let settings: Settings = args.set.iter().cloned().collect();
-    let engine = find_engine(&args.engine, &settings)?;
+    let system = args.choice.system_of(&mut molecule, &args.molecule)?;
+    let engine = args.choice.find()?;
     let is_model = engine.is_model();
-    let store = store_dir(args.store.as_deref());
+    let store = args.choice.store_dir();
     let jobs = usize::try_from(args.jobs).unwrap_or(1);
     let ev = Evaluator::local(engine.clone(), &store, jobs)?;
     let x = molecule.flat();

@@ -6,7 +6,7 @@
 
 use crate::algo::freq::Modes;
 use crate::driver::{Evaluator, Stats, System};
-use crate::engine::{find_engine, Engine, Settings};
+use crate::engine::Engine;
 use crate::error::{Error, Result};
 use crate::geom::Frame;
 use crate::molecule::Molecule;
@@ -22,21 +22,8 @@ pub const EXIT_NOT_CONVERGED: i32 = 3;
 /// Engine, store and output options shared by the commands (as in `cairn evaluate`).
 #[derive(clap::Args, Debug, Clone)]
 pub struct Common {
-    /// Engine name: an adapter (e.g. xtb) or a built-in model surface (muller-brown).
-    #[arg(long)]
-    pub engine: String,
-    /// Engine setting, repeatable (e.g. --set method=gfn2).
-    #[arg(long = "set", value_name = "KEY=VALUE", value_parser = parse_setting)]
-    pub set: Vec<(String, String)>,
-    /// Total charge.
-    #[arg(long, default_value_t = 0, allow_negative_numbers = true)]
-    pub charge: i32,
-    /// Spin multiplicity 2S+1 (1 singlet, 2 doublet, ...).
-    #[arg(long, default_value_t = 1)]
-    pub multiplicity: u32,
-    /// Evaluation store directory (default: $CAIRN_STORE, else ./.cairn-store).
-    #[arg(long, value_name = "DIR")]
-    pub store: Option<PathBuf>,
+    #[command(flatten)]
+    pub choice: crate::cli::evaluate::EngineChoice,
     /// Engine jobs run at once (finite-difference displacements run side by side).
     #[arg(long, default_value_t = 1, value_parser = clap::value_parser!(u64).range(1..))]
     pub jobs: u64,
@@ -47,13 +34,6 @@ pub struct Common {
     /// Print the JSON record instead of the readable summary.
     #[arg(long)]
     pub json: bool,
-}
-
-fn parse_setting(s: &str) -> std::result::Result<(String, String), String> {
-    match s.split_once('=') {
-        Some((k, v)) if !k.trim().is_empty() => Ok((k.trim().to_string(), v.trim().to_string())),
-        _ => Err(format!("expected KEY=VALUE, got '{s}'")),
-    }
 }
 
 /// Parse a convergence set name for clap.
@@ -77,16 +57,8 @@ impl Setup {
     /// Read the geometry, check charge/multiplicity, find the engine, open the store.
     pub fn new(input: &Path, c: &Common) -> Result<Setup> {
         let mut molecule = crate::xyz::read(input)?;
-        molecule.charge = c.charge;
-        molecule.multiplicity = c.multiplicity;
-        let system = System::of(&molecule).map_err(|e| {
-            Error::invalid(format!(
-                "{}: {e} (set them with --charge and --multiplicity)",
-                input.display()
-            ))
-        })?;
-        let settings: Settings = c.set.iter().cloned().collect();
-        let engine = find_engine(&c.engine, &settings)?;
+        let system = c.choice.system_of(&mut molecule, input)?;
+        let engine = c.choice.find()?;
         let surface = molecule.is_model_surface();
         if engine.is_model() != surface {
             return Err(Error::invalid(format!(
@@ -114,7 +86,7 @@ impl Setup {
                 )));
             }
         }
-        let store = crate::cli::evaluate::store_dir(c.store.as_deref());
+        let store = c.choice.store_dir();
         let jobs = usize::try_from(c.jobs).unwrap_or(1);
         let evaluator = Evaluator::local(engine.clone(), &store, jobs)?;
         Ok(Setup {

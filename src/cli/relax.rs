@@ -34,13 +34,7 @@ pub struct Args {
 }
 
 pub fn run(args: Args) -> i32 {
-    match execute(&args) {
-        Ok(code) => code,
-        Err(e) => {
-            eprintln!("error: {e}");
-            1
-        }
-    }
+    crate::cli::evaluate::exit_status(execute(&args))
 }
 
 fn execute(a: &Args) -> Result<i32> {

@@ -141,13 +141,7 @@ pub fn read_mode(path: &std::path::Path, molecule: &Molecule) -> Result<DVector<
 }
 
 pub fn run(args: Args) -> i32 {
-    match execute(&args) {
-        Ok(code) => code,
-        Err(e) => {
-            eprintln!("error: {e}");
-            1
-        }
-    }
+    crate::cli::evaluate::exit_status(execute(&args))
 }
 
 fn execute(a: &Args) -> Result<i32> {

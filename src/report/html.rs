@@ -118,7 +118,7 @@ fn overview(data: &RunData) -> String {
             fixed(d.kj(s.and_then(|s| s.barrier_forward_kcal_mol)), 1),
             fixed(d.shown(s.and_then(|s| s.barrier_reverse_kcal_mol)), 2),
             fixed(d.shown(s.and_then(|s| s.reaction_energy_kcal_mol)), 2),
-            fixed(imaginary(d), 0),
+            fixed(imaginary(d), 0) + surf,
             fixed(s.and_then(|s| s.barrier_forward_gibbs_kcal_mol), 2),
             esc(&sci(rate0.map(|r| r.forward_per_s))),
             esc(&duration(rate0.map(|r| r.half_life_forward_s))),
@@ -126,7 +126,7 @@ fn overview(data: &RunData) -> String {
     }
     o.push_str("</tbody></table></div>");
     if sorted.iter().any(|d| d.model_surface) {
-        o.push_str(r#"<p class="notes">ᵘ model surface: energies in the surface's own units, not kcal/mol.</p>"#);
+        o.push_str(r#"<p class="notes">ᵘ model surface: energies in the surface's own units, not kcal/mol; frequencies from the surface's curvature with unit masses.</p>"#);
     }
     let molecules: Vec<&&ReactionData> = sorted.iter().filter(|d| !d.model_surface).collect();
     let surfaces: Vec<&&ReactionData> = sorted.iter().filter(|d| d.model_surface).collect();
@@ -185,8 +185,13 @@ fn reaction(d: &ReactionData) -> String {
             }
             let _ = write!(
                 o,
-                "</tbody></table><p class=\"notes\">Imaginary frequency at the saddle: <b>{} cm⁻¹</b> ({} imaginary mode{}). IRC connects the ends: {}. Engine runs {}, store hits {}, wall time {:.1} s.</p>",
+                "</tbody></table><p class=\"notes\">Imaginary frequency at the saddle: <b>{} cm⁻¹</b>{} ({} imaginary mode{}). IRC connects the ends: {}. Engine runs {}, store hits {}, wall time {:.1} s.</p>",
                 fixed(imaginary(d), 1),
+                if d.model_surface {
+                    " (model surface: from the surface's curvature with unit masses, not a molecular vibration)"
+                } else {
+                    ""
+                },
                 s.n_imaginary.map(|n| n.to_string()).unwrap_or_else(|| "—".into()),
                 if s.n_imaginary == Some(1) { "" } else { "s" },
                 match s.irc_connects {

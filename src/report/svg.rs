@@ -14,7 +14,7 @@ pub const IRC_COLOUR: &str = "#0f8a6c";
 /// The band's last iteration (earlier iterations are lighter shades of it).
 pub const BAND_COLOUR: &str = "#7c3aed";
 /// Bars of the barrier chart.
-pub const BAR_COLOUR: &str = "#1d5fa8";
+pub const BAR_COLOUR: &str = "#2f7fc1";
 /// Axes and tick labels.
 pub const AXIS_COLOUR: &str = "#4b5563";
 /// Label text.

@@ -347,3 +347,101 @@ pub fn write(dir: &Path) -> Result<Written> {
 pub fn state_word(s: RunState) -> &'static str {
     s.name()
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::study::record::RateSummary;
+
+    fn reaction(name: &str, barrier: Option<f64>, status: Verdict) -> ReactionData {
+        let mut s = Summary::empty(name);
+        s.status = status;
+        s.reason = format!("reason of {name}");
+        s.barrier_forward_kcal_mol = barrier;
+        s.barrier_reverse_kcal_mol = barrier.map(|b| b - 5.0);
+        s.reaction_energy_kcal_mol = barrier.map(|_| 5.0);
+        s.imaginary_frequency_cm1 = Some(1234.5);
+        ReactionData {
+            name: name.to_string(),
+            summary: Some(s),
+            kinetics: None,
+            band_history: None,
+            band_final: None,
+            irc: None,
+            frequencies_cm1: None,
+            model_surface: false,
+            tasks: vec![],
+        }
+    }
+
+    fn run() -> RunData {
+        let mut slow = reaction("slow,one", Some(30.25), Verdict::Verified);
+        if let Some(s) = slow.summary.as_mut() {
+            s.rate_constants = Some(vec![RateSummary {
+                temperature_k: 298.15,
+                forward_per_s: 4.5e-10,
+                reverse_per_s: 1.0,
+                half_life_forward_s: std::f64::consts::LN_2 / 4.5e-10,
+                half_life_reverse_s: std::f64::consts::LN_2,
+            }]);
+            s.barrier_forward_gibbs_kcal_mol = Some(29.5);
+        }
+        RunData {
+            dir: PathBuf::from("/runs/x"),
+            study: "demo <study>".into(),
+            reactions: vec![
+                slow,
+                reaction("<b>bold</b>&\"q\"", Some(12.5), Verdict::Unverified),
+                reaction("pipe|name", None, Verdict::Failed),
+                reaction("fast", Some(3.75), Verdict::Verified),
+            ],
+        }
+    }
+
+    #[test]
+    fn sorted_by_forward_barrier_missing_last() {
+        let d = run();
+        let names: Vec<&str> = d.sorted().iter().map(|r| r.name.as_str()).collect();
+        assert_eq!(names, ["fast", "<b>bold</b>&\"q\"", "slow,one", "pipe|name"]);
+    }
+
+    #[test]
+    fn html_escapes_names_and_shows_values_in_order() {
+        let d = run();
+        let page = html::render(&d);
+        assert!(!page.contains("<b>bold</b>"), "raw markup leaked");
+        assert!(page.contains("&lt;b&gt;bold&lt;/b&gt;&amp;&quot;q&quot;"));
+        assert!(page.contains("demo &lt;study&gt;"));
+        // Overview rows in barrier order, with the values and both units.
+        let table = &page[page.find("class=\"overview\"").unwrap()..page.find("</table>").unwrap()];
+        let pos = |s: &str| table.find(s).unwrap_or_else(|| panic!("{s}"));
+        assert!(pos(">fast<") < pos("bold") && pos("bold") < pos("slow,one") && pos("slow,one") < pos("pipe|name"));
+        for v in ["3.75", "12.50", "30.25", "126.6", "4.50e-10", "48.8 years"] {
+            // 30.25 kcal/mol = 126.6 kJ/mol (thermochemical calorie); ln2/4.5e-10 s = 1.540e9 s = 48.8 Julian years.
+            assert!(table.contains(v), "{v}");
+        }
+        assert!(page.contains(CAUTION.split('(').next().unwrap()));
+        // The failed reaction without barriers gets no diagram, a stated absence instead.
+        assert!(page.contains("no barrier: the reaction has no verdict"));
+        assert!(page.contains("Not computed: the run has no rates stage"));
+    }
+
+    #[test]
+    fn markdown_and_csv_escape_names_and_keep_the_order() {
+        let d = run();
+        let md = text::markdown(&d);
+        assert!(md.contains("| pipe\\|name | failed |"), "{md}");
+        assert!(md.contains("&lt;b&gt;bold&lt;/b&gt;"));
+        assert!(md.contains("> **Caution.**"));
+        let csv = text::csv(&d);
+        let rows: Vec<&str> = csv.lines().collect();
+        assert!(rows[1].starts_with("fast,verified,kcal/mol,3.75,"));
+        assert!(rows[2].starts_with("\"<b>bold</b>&\"\"q\"\"\",unverified,"));
+        assert!(rows[3].starts_with("\"slow,one\",verified,kcal/mol,30.25,25.25,5,126.5"), "{}", rows[3]);
+        assert!(rows[3].contains(",4.5e-10,"), "{}", rows[3]);
+        assert!(rows[4].starts_with("pipe|name,failed,kcal/mol,,,"));
+        // Every row has the header's number of fields (the quoted comma does not split).
+        let n = rows[0].split(',').count();
+        assert_eq!(rows[1].split(',').count(), n);
+    }
+}

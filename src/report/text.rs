@@ -57,8 +57,10 @@ pub fn duration(seconds: Option<f64>) -> String {
         format!("{:.1} h", s / HOUR)
     } else if s < YEAR {
         format!("{:.1} days", s / DAY)
+    } else if s < 100.0 * YEAR {
+        format!("{:.1} years", s / YEAR)
     } else if s < 1e6 * YEAR {
-        format!("{:.3} years", s / YEAR).replace(".000 ", " ")
+        format!("{:.0} years", s / YEAR)
     } else {
         format!("{} years", sci(Some(s / YEAR)))
     }
@@ -365,7 +367,8 @@ mod tests {
         assert_eq!(duration(Some(90.0)), "1.5 min");
         assert_eq!(duration(Some(7200.0)), "2.0 h");
         // Julian year 365.25 d (IAU).
-        assert_eq!(duration(Some(2.0 * 365.25 * 86_400.0)), "2 years");
+        assert_eq!(duration(Some(2.0 * 365.25 * 86_400.0)), "2.0 years");
+        assert_eq!(duration(Some(1234.4 * 365.25 * 86_400.0)), "1234 years");
         assert_eq!(fixed(Some(1.234), 1), "1.2");
         assert_eq!(fixed(None, 1), "—");
     }

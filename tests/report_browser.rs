@@ -58,10 +58,9 @@ fn report_renders_in_headless_chromium_with_its_charts_drawn() {
     };
     let top = tempfile::tempdir().unwrap();
     let dir = top.path().join("run");
-    let s = study::load(
-        &PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/data/studies/mb.yaml"),
-    )
-    .unwrap();
+    let s =
+        study::load(&PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/data/studies/mb.yaml"))
+            .unwrap();
     let opts = run::RunOptions {
         dir: dir.clone(),
         jobs: 2,
@@ -78,7 +77,16 @@ fn report_renders_in_headless_chromium_with_its_charts_drawn() {
     let profile_arg = format!("--user-data-dir={}", profile.display());
 
     // 1. The DOM after scripts ran: the marker says how many charts the browser found.
-    let out = browser(&exe, &[&profile_arg, "--dump-dom", "--enable-logging=stderr", "--v=0"], &url);
+    let out = browser(
+        &exe,
+        &[
+            &profile_arg,
+            "--dump-dom",
+            "--enable-logging=stderr",
+            "--v=0",
+        ],
+        &url,
+    );
     let dom = String::from_utf8_lossy(&out.stdout);
     let log = String::from_utf8_lossy(&out.stderr);
     assert!(
@@ -104,7 +112,11 @@ fn report_renders_in_headless_chromium_with_its_charts_drawn() {
         ],
         &url,
     );
-    assert!(shot.is_file(), "no screenshot: {}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        shot.is_file(),
+        "no screenshot: {}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     let bytes = std::fs::read(&shot).unwrap();
     let decoder = png::Decoder::new(std::io::Cursor::new(bytes));
     let mut reader = decoder.read_info().unwrap();
@@ -140,10 +152,20 @@ fn report_renders_in_headless_chromium_with_its_charts_drawn() {
     let irc = find(svg::IRC_COLOUR);
     let band = find(svg::BAND_COLOUR);
     let bars = find(svg::BAR_COLOUR);
-    eprintln!("pixels: levels {}, irc {}, band {}, bars {}", levels.len(), irc.len(), band.len(), bars.len());
+    eprintln!(
+        "pixels: levels {}, irc {}, band {}, bars {}",
+        levels.len(),
+        irc.len(),
+        band.len(),
+        bars.len()
+    );
     // Four energy diagrams × three 4-px levels ≈ 60 px wide; four IRC curves of 3 px; two bands'
     // last iteration (3 px and dots); four bars ≥ 18 px tall.
-    assert!(levels.len() > 1500, "energy-diagram levels: {} pixels", levels.len());
+    assert!(
+        levels.len() > 1500,
+        "energy-diagram levels: {} pixels",
+        levels.len()
+    );
     assert!(irc.len() > 1500, "IRC curves: {} pixels", irc.len());
     assert!(band.len() > 600, "band curves: {} pixels", band.len());
     assert!(bars.len() > 3000, "barrier bars: {} pixels", bars.len());
@@ -153,8 +175,14 @@ fn report_renders_in_headless_chromium_with_its_charts_drawn() {
     let min_y = |v: &[(usize, usize)]| v.iter().map(|p| p.1).min().unwrap();
     assert!(max_y(&bars) < min_y(&levels), "bars below a diagram");
     assert!(max_y(&bars) < min_y(&irc));
-    assert!(levels.iter().all(|p| p.0 < w / 2), "an energy level in the right half");
-    assert!(irc.iter().all(|p| p.0 > w / 2), "an IRC pixel in the left half");
+    assert!(
+        levels.iter().all(|p| p.0 < w / 2),
+        "an energy level in the right half"
+    );
+    assert!(
+        irc.iter().all(|p| p.0 > w / 2),
+        "an IRC pixel in the left half"
+    );
     // The page background is the stylesheet's (not a blank or error page).
     let bg = rgb("#f6f7f9");
     assert_eq!(px(3, h - 3), bg);

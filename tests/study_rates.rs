@@ -36,7 +36,10 @@ fn rates_stage_on_xtb_matches_the_formulas_and_reaches_the_report() {
         "{}",
         sum.reason
     );
-    assert_eq!(sum.kinetics_json.as_deref(), Some("hcn-isomer/kinetics.json"));
+    assert_eq!(
+        sum.kinetics_json.as_deref(),
+        Some("hcn-isomer/kinetics.json")
+    );
     let text = std::fs::read_to_string(dir.join("hcn-isomer/kinetics.json")).unwrap();
     let k = KineticsRecord::from_json(&text, "kinetics.json").unwrap();
 
@@ -47,8 +50,14 @@ fn rates_stage_on_xtb_matches_the_formulas_and_reaches_the_report() {
     assert_eq!(k.rate_constant_unit, "s^-1");
 
     // The electronic barriers are the verdict's (same ends, same energies).
-    assert!((k.barrier_forward_electronic_kcal_mol - sum.barrier_forward_kcal_mol.unwrap()).abs() < 1e-9);
-    assert!((k.barrier_reverse_electronic_kcal_mol - sum.barrier_reverse_kcal_mol.unwrap()).abs() < 1e-9);
+    assert!(
+        (k.barrier_forward_electronic_kcal_mol - sum.barrier_forward_kcal_mol.unwrap()).abs()
+            < 1e-9
+    );
+    assert!(
+        (k.barrier_reverse_electronic_kcal_mol - sum.barrier_reverse_kcal_mol.unwrap()).abs()
+            < 1e-9
+    );
 
     // HCN and HNC are linear: 3N−5 = 4 wavenumbers, σ = 1 (C∞v); the saddle (bent) has
     // 3N−6 = 3 with one imaginary, its magnitude the summary's imaginary frequency.
@@ -71,10 +80,16 @@ fn rates_stage_on_xtb_matches_the_formulas_and_reaches_the_report() {
     let zpe = |f: &[f64]| 0.5 * f.iter().filter(|x| **x > 0.0).sum::<f64>() * 11.962_656 / 4184.0;
     for role in ["reactant", "saddle", "product"] {
         let s = sp(role);
-        assert!(rel(s.zero_point_energy_kcal_mol, zpe(&s.frequencies_cm1)) < 1e-6, "{role}");
+        assert!(
+            rel(s.zero_point_energy_kcal_mol, zpe(&s.frequencies_cm1)) < 1e-6,
+            "{role}"
+        );
     }
     let dzpe = zpe(&ts.frequencies_cm1) - zpe(&sp("reactant").frequencies_cm1);
-    assert!((k.barrier_forward_zpe_kcal_mol - k.barrier_forward_electronic_kcal_mol - dzpe).abs() < 1e-6);
+    assert!(
+        (k.barrier_forward_zpe_kcal_mol - k.barrier_forward_electronic_kcal_mol - dzpe).abs()
+            < 1e-6
+    );
 
     // 298.15 K: k = κ (k_B T/h) exp(−ΔG‡/RT) with §3's k_B T/h = 6.2124379916e12 s⁻¹ and
     // RT = 0.59248495 kcal/mol; κ = 1 + (c₂ν̃‡/T)²/24 (Wigner; c₂ = 1.438776877 cm K).
@@ -85,20 +100,41 @@ fn rates_stage_on_xtb_matches_the_formulas_and_reaches_the_report() {
     assert!(rel(t.tunnelling_kappa, kappa) < 1e-9);
     let kf = kappa * 6.212_437_991_6e12 * (-t.barrier_forward_gibbs_kcal_mol / 0.592_484_95).exp();
     let kr = kappa * 6.212_437_991_6e12 * (-t.barrier_reverse_gibbs_kcal_mol / 0.592_484_95).exp();
-    assert!(rel(t.rate_constant_forward_per_s, kf) < 1e-6, "{} vs {kf}", t.rate_constant_forward_per_s);
+    assert!(
+        rel(t.rate_constant_forward_per_s, kf) < 1e-6,
+        "{} vs {kf}",
+        t.rate_constant_forward_per_s
+    );
     assert!(rel(t.rate_constant_reverse_per_s, kr) < 1e-6);
     assert!(rel(t.half_life_forward_s, std::f64::consts::LN_2 / kf) < 1e-6);
     // Microscopic reversibility: ΔG = ΔG‡(forward) − ΔG‡(reverse), k_f/k_r = exp(−ΔG/RT).
-    assert!((t.reaction_gibbs_kcal_mol - (t.barrier_forward_gibbs_kcal_mol - t.barrier_reverse_gibbs_kcal_mol)).abs() < 1e-9);
-    assert!(rel(t.rate_constant_forward_per_s / t.rate_constant_reverse_per_s, (-t.reaction_gibbs_kcal_mol / 0.592_484_95).exp()) < 1e-6);
+    assert!(
+        (t.reaction_gibbs_kcal_mol
+            - (t.barrier_forward_gibbs_kcal_mol - t.barrier_reverse_gibbs_kcal_mol))
+            .abs()
+            < 1e-9
+    );
+    assert!(
+        rel(
+            t.rate_constant_forward_per_s / t.rate_constant_reverse_per_s,
+            (-t.reaction_gibbs_kcal_mol / 0.592_484_95).exp()
+        ) < 1e-6
+    );
     // κ > 2 at 298 K for a 1400i cm⁻¹ mode: the record says the Wigner model is stretched.
-    assert!(k.notes.iter().any(|n| n.contains("Wigner κ above 2")), "{:?}", k.notes);
+    assert!(
+        k.notes.iter().any(|n| n.contains("Wigner κ above 2")),
+        "{:?}",
+        k.notes
+    );
     // Higher temperature, faster (ΔG‡ changes little against RT).
     assert!(k.temperatures[1].rate_constant_forward_per_s > t.rate_constant_forward_per_s);
 
     // The summary carries the 298.15 K Gibbs barriers and every rate constant.
     assert_eq!(sum.gibbs_temperature_k, Some(298.15));
-    assert_eq!(sum.barrier_forward_gibbs_kcal_mol, Some(t.barrier_forward_gibbs_kcal_mol));
+    assert_eq!(
+        sum.barrier_forward_gibbs_kcal_mol,
+        Some(t.barrier_forward_gibbs_kcal_mol)
+    );
     assert_eq!(sum.rate_constants.as_ref().map(Vec::len), Some(2));
 
     // The saddle's Hessian came from the store (modes ran at the same level).
@@ -111,7 +147,12 @@ fn rates_stage_on_xtb_matches_the_formulas_and_reaches_the_report() {
         .arg(&dir)
         .output()
         .unwrap();
-    assert_eq!(out.status.code(), Some(0), "{}", String::from_utf8_lossy(&out.stderr));
+    assert_eq!(
+        out.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     let csv = std::fs::read_to_string(dir.join("summary.csv")).unwrap();
     let lines: Vec<&str> = csv.lines().collect();
     let head: Vec<&str> = lines[0].split(',').collect();

@@ -544,7 +544,8 @@ fn cli_prints_every_term_and_a_json_record() {
 #[test]
 fn remaining_bad_input_is_an_error_not_a_panic() {
     let f = [3657.0, 1595.0, 3756.0];
-    let err = |s: Settings, m: &Molecule, f: &[f64]| rrho::thermo(m, f, &s).unwrap_err().to_string();
+    let err =
+        |s: Settings, m: &Molecule, f: &[f64]| rrho::thermo(m, f, &s).unwrap_err().to_string();
     let e = err(
         Settings {
             pressure_pa: 0.0,
@@ -581,7 +582,10 @@ fn remaining_bad_input_is_an_error_not_a_panic() {
         &h2o(),
         &[-3657.0, -1595.0, 3756.0],
     );
-    assert!(e.contains("exactly one imaginary") && e.contains("2 given"), "{e}");
+    assert!(
+        e.contains("exactly one imaginary") && e.contains("2 given"),
+        "{e}"
+    );
     // A model-surface pseudo-atom has no mass.
     let x = Molecule::new(vec![Element::X], vec![[0.1, 0.2, 0.0]]);
     let e = err(Settings::default(), &x, &[]);
@@ -617,17 +621,26 @@ fn cli_names_the_input_file_and_the_problem() {
             .args(extra)
             .output()
             .unwrap();
-        (out.status.code(), String::from_utf8_lossy(&out.stderr).to_string())
+        (
+            out.status.code(),
+            String::from_utf8_lossy(&out.stderr).to_string(),
+        )
     };
     let good = "geometry: water.xyz\nfrequencies_cm1: [3657, 1595, 3756]\n";
     // Temperature ≤ 0 with otherwise good input.
     let (code, err) = run(good, &["--temperature", "-3"]);
     assert_eq!(code, Some(1));
-    assert!(err.contains("water.yaml") && err.contains("temperature"), "{err}");
+    assert!(
+        err.contains("water.yaml") && err.contains("temperature"),
+        "{err}"
+    );
     // Too few frequencies for three atoms.
     let (code, err) = run("geometry: water.xyz\nfrequencies_cm1: [3657, 1595]\n", &[]);
     assert_eq!(code, Some(1));
-    assert!(err.contains("water.yaml") && err.contains("3N−6 = 3"), "{err}");
+    assert!(
+        err.contains("water.yaml") && err.contains("3N−6 = 3"),
+        "{err}"
+    );
     // Pressure ≤ 0.
     let (code, err) = run(good, &["--pressure", "0"]);
     assert_eq!(code, Some(1));

@@ -402,7 +402,10 @@ mod tests {
     fn sorted_by_forward_barrier_missing_last() {
         let d = run();
         let names: Vec<&str> = d.sorted().iter().map(|r| r.name.as_str()).collect();
-        assert_eq!(names, ["fast", "<b>bold</b>&\"q\"", "slow,one", "pipe|name"]);
+        assert_eq!(
+            names,
+            ["fast", "<b>bold</b>&\"q\"", "slow,one", "pipe|name"]
+        );
     }
 
     #[test]
@@ -415,7 +418,11 @@ mod tests {
         // Overview rows in barrier order, with the values and both units.
         let table = &page[page.find("class=\"overview\"").unwrap()..page.find("</table>").unwrap()];
         let pos = |s: &str| table.find(s).unwrap_or_else(|| panic!("{s}"));
-        assert!(pos(">fast<") < pos("bold") && pos("bold") < pos("slow,one") && pos("slow,one") < pos("pipe|name"));
+        assert!(
+            pos(">fast<") < pos("bold")
+                && pos("bold") < pos("slow,one")
+                && pos("slow,one") < pos("pipe|name")
+        );
         for v in ["3.75", "12.50", "30.25", "126.6", "4.50e-10", "48.8 years"] {
             // 30.25 kcal/mol = 126.6 kJ/mol (thermochemical calorie); ln2/4.5e-10 s = 1.540e9 s = 48.8 Julian years.
             assert!(table.contains(v), "{v}");
@@ -437,7 +444,11 @@ mod tests {
         let rows: Vec<&str> = csv.lines().collect();
         assert!(rows[1].starts_with("fast,verified,kcal/mol,3.75,"));
         assert!(rows[2].starts_with("\"<b>bold</b>&\"\"q\"\"\",unverified,"));
-        assert!(rows[3].starts_with("\"slow,one\",verified,kcal/mol,30.25,25.25,5,126.5"), "{}", rows[3]);
+        assert!(
+            rows[3].starts_with("\"slow,one\",verified,kcal/mol,30.25,25.25,5,126.5"),
+            "{}",
+            rows[3]
+        );
         assert!(rows[3].contains(",4.5e-10,"), "{}", rows[3]);
         assert!(rows[4].starts_with("pipe|name,failed,kcal/mol,,,"));
         // Every row has the header's number of fields (the quoted comma does not split).

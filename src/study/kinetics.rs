@@ -132,6 +132,9 @@ pub(super) struct RatesInput {
     pub product: Point,
     pub saddle: Point,
     pub verdict: Verdict,
+    /// The minimised IRC ends (reactant side, product side), used for an end whose relaxed
+    /// geometry turns out not to be a minimum (e.g. held flat by symmetry).
+    pub irc_ends: Option<[Point; 2]>,
 }
 
 /// Run the stage: Hessians, frequencies, thermochemistry, rates; write kinetics.json.
@@ -181,26 +184,61 @@ pub(super) async fn run_rates(
             .map_err(|e| Error::Algorithm(format!("frequency analysis: {e}")))
     };
     let mut notes = Vec::new();
-    let f_r = clean_minimum(
-        &analyse(&vr.hessian, &inp.reactant.0)?,
-        "reactant",
-        &mut notes,
-    )?;
-    let f_p = clean_minimum(
-        &analyse(&vp.hessian, &inp.product.0)?,
-        "product",
-        &mut notes,
-    )?;
-    let (f_s, imag) = clean_saddle(&analyse(&vs.hessian, &inp.saddle.0)?, &mut notes)?;
+    let (saddle_frequencies, imag) =
+        clean_saddle(&analyse(&vs.hessian, &inp.saddle.0)?, &mut notes)?;
+    // Each end: its own Hessian; if it is not a minimum, the minimised IRC end on that side
+    // (stated in the notes), when it is a different point and a minimum.
+    let mut ends = Vec::new();
+    for (k, (role, point, v)) in [
+        ("reactant", &inp.reactant, &vr),
+        ("product", &inp.product, &vp),
+    ]
+    .into_iter()
+    .enumerate()
+    {
+        let mut own_notes = Vec::new();
+        match clean_minimum(&analyse(&v.hessian, &point.0)?, role, &mut own_notes) {
+            Ok(f) => {
+                notes.extend(own_notes);
+                ends.push((point.clone(), f));
+            }
+            Err(first) => {
+                let alt = inp
+                    .irc_ends
+                    .as_ref()
+                    .map(|e| e[k].clone())
+                    .filter(|a| (&a.0 - &point.0).norm() > 1e-8);
+                let Some(alt) = alt else { return Err(first) };
+                let mut a = HessianCalc::new(alt.0.clone(), Frame::Molecule, HessianSource::Engine);
+                let (va, sa) = driver::drive(&mut a, e, &system).await?;
+                super::stages::add(acc, &sa);
+                let mut alt_notes = Vec::new();
+                let role_irc = format!("{role} (minimised IRC end)");
+                match clean_minimum(&analyse(&va.hessian, &alt.0)?, &role_irc, &mut alt_notes) {
+                    Ok(f) => {
+                        notes.push(format!(
+                            "{first}; the minimised IRC end on the {role} side is a minimum and was used instead (its energy differs from the {role} energy of the verdict's barriers by {:.3} kcal/mol)",
+                            (alt.1 - point.1) * KCALMOL_PER_HARTREE
+                        ));
+                        notes.extend(alt_notes);
+                        ends.push((alt, f));
+                    }
+                    Err(_) => return Err(first),
+                }
+            }
+        }
+    }
+    let (reactant, f_r) = ends.remove(0);
+    let (product, f_p) = ends.remove(0);
     let out = compute(
         r,
         &st.level,
         spec,
         m,
         [
-            (&inp.reactant, &f_r[..]),
-            (&inp.saddle, &f_s[..]),
-            (&inp.product, &f_p[..]),
+            (&reactant, &f_r[..]),
+            (&inp.saddle, &saddle_frequencies[..]),
+            (&product, &f_p[..]),
         ],
         imag,
         inp.verdict,
@@ -242,7 +280,7 @@ pub fn clean_minimum(f: &[f64], role: &str, notes: &mut Vec<String>) -> Result<V
         .collect();
     if !big.is_empty() {
         return Err(Error::Algorithm(format!(
-            "the {role} has imaginary frequencies {} cm⁻¹ (above the {NOISE_THRESHOLD_CM1} cm⁻¹ noise threshold): it is not a minimum; relax it tighter (e.g. raise relax-ends max-steps) before computing rates",
+            "the {role} has imaginary frequencies {} cm⁻¹ (above the {NOISE_THRESHOLD_CM1} cm⁻¹ noise threshold): it is a stationary point but not a minimum (often a geometry held flat or linear by symmetry); displace it along that mode and relax it again",
             fmt_list(&big)
         )));
     }

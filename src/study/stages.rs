@@ -545,6 +545,7 @@ pub(super) async fn run_stage(
                 product: pick(&inp.product, &ends[1]),
                 saddle,
                 verdict,
+                irc_ends: Some(ends),
             };
             super::kinetics::run_rates(ctx, r, st, spec, m, input, e, acc).await
         }

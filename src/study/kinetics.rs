@@ -184,8 +184,23 @@ pub(super) async fn run_rates(
             .map_err(|e| Error::Algorithm(format!("frequency analysis: {e}")))
     };
     let mut notes = Vec::new();
-    let (saddle_frequencies, imag) =
-        clean_saddle(&analyse(&vs.hessian, &inp.saddle.0)?, &mut notes)?;
+    // Nearly linear geometries (within 0.02 Å) are analysed and treated as linear, so the
+    // frequency count and the rotational model agree.
+    let line = |role: &str, p: &Point, notes: &mut Vec<String>| -> Point {
+        match linearised(m, &p.0) {
+            Some((x, moved)) => {
+                if moved > 1e-6 {
+                    notes.push(format!(
+                        "{role}: every atom within {moved:.4} Å of a line: treated as linear (3N−5 vibrations)"
+                    ));
+                }
+                (x, p.1)
+            }
+            None => p.clone(),
+        }
+    };
+    let saddle = line("saddle", &inp.saddle, &mut notes);
+    let (saddle_frequencies, imag) = clean_saddle(&analyse(&vs.hessian, &saddle.0)?, &mut notes)?;
     // Each end: its own Hessian; if it is not a minimum, the minimised IRC end on that side
     // (stated in the notes), when it is a different point and a minimum.
     let mut ends = Vec::new();
@@ -197,10 +212,11 @@ pub(super) async fn run_rates(
     .enumerate()
     {
         let mut own_notes = Vec::new();
-        match clean_minimum(&analyse(&v.hessian, &point.0)?, role, &mut own_notes) {
+        let lp = line(role, point, &mut own_notes);
+        match clean_minimum(&analyse(&v.hessian, &lp.0)?, role, &mut own_notes) {
             Ok(f) => {
                 notes.extend(own_notes);
-                ends.push((point.clone(), f));
+                ends.push((lp, f));
             }
             Err(first) => {
                 let alt = inp
@@ -214,6 +230,7 @@ pub(super) async fn run_rates(
                 super::stages::add(acc, &sa);
                 let mut alt_notes = Vec::new();
                 let role_irc = format!("{role} (minimised IRC end)");
+                let alt = line(&role_irc, &alt, &mut alt_notes);
                 match clean_minimum(&analyse(&va.hessian, &alt.0)?, &role_irc, &mut alt_notes) {
                     Ok(f) => {
                         notes.push(format!(
@@ -237,7 +254,7 @@ pub(super) async fn run_rates(
         m,
         [
             (&reactant, &f_r[..]),
-            (&inp.saddle, &saddle_frequencies[..]),
+            (&saddle, &saddle_frequencies[..]),
             (&product, &f_p[..]),
         ],
         imag,
@@ -268,6 +285,51 @@ pub(super) async fn run_rates(
             })
             .collect(),
     }))
+}
+
+/// A geometry within the thermochemistry's linearity tolerance of a line (0.02 Å), put exactly
+/// on that line (the principal axis of least inertia through the centre of mass), with the
+/// largest distance moved (Å); None when it is not linear. Frequencies and thermochemistry then
+/// agree on 3N−5 vibrations.
+pub fn linearised(m: &Molecule, x: &DVector<f64>) -> Option<(DVector<f64>, f64)> {
+    use crate::thermo::symmetry::{inertia_tensor, is_linear, DEFAULT_SYMMETRY_TOL_ANGSTROM};
+    use crate::units::ANGSTROM_PER_BOHR;
+    use nalgebra::Vector3;
+    let n = m.len();
+    if n < 2 || x.len() != 3 * n {
+        return None;
+    }
+    let masses = m.masses();
+    let ang: Vec<[f64; 3]> = (0..n)
+        .map(|i| [0, 1, 2].map(|k| x[3 * i + k] * ANGSTROM_PER_BOHR))
+        .collect();
+    if !is_linear(&ang, &masses, DEFAULT_SYMMETRY_TOL_ANGSTROM) {
+        return None;
+    }
+    let mtot: f64 = masses.iter().sum();
+    let com = ang.iter().zip(&masses).fold(Vector3::zeros(), |a, (c, w)| {
+        a + Vector3::new(c[0], c[1], c[2]) * *w
+    }) / mtot;
+    let pts: Vec<Vector3<f64>> = ang
+        .iter()
+        .map(|c| Vector3::new(c[0], c[1], c[2]) - com)
+        .collect();
+    let eig = inertia_tensor(&pts, &masses).symmetric_eigen();
+    let k = (0..3)
+        .min_by(|&a, &b| eig.eigenvalues[a].total_cmp(&eig.eigenvalues[b]))
+        .unwrap_or(0);
+    let axis = eig.eigenvectors.column(k).into_owned();
+    let mut out = x.clone();
+    let mut moved = 0.0_f64;
+    for (i, p) in pts.iter().enumerate() {
+        let q = axis * p.dot(&axis);
+        moved = moved.max((p - q).norm());
+        let r = (q + com) / ANGSTROM_PER_BOHR;
+        for c in 0..3 {
+            out[3 * i + c] = r[c];
+        }
+    }
+    Some((out, moved))
 }
 
 /// Wavenumbers of a minimum: noise-sized imaginary ones used as real (stated), larger ones an
@@ -495,5 +557,44 @@ mod tests {
         assert_eq!(imag, 1200.0);
         assert!(clean_saddle(&[-1200.0, -300.0, 500.0], &mut notes).is_err());
         assert!(clean_saddle(&[1200.0, 300.0, 500.0], &mut notes).is_err());
+    }
+
+    #[test]
+    fn nearly_linear_geometries_are_put_on_their_line() {
+        use crate::elements::Element;
+        let b = crate::units::BOHR_PER_ANGSTROM;
+        let el = |s: &str| Element::from_symbol(s).unwrap();
+        // HOC+-like: H bent 0.01 Å off the O–C line (within the 0.02 Å tolerance).
+        let m = Molecule::new(
+            vec![el("H"), el("O"), el("C")],
+            vec![
+                [0.01 * b, 0.0, -0.98 * b],
+                [0.0, 0.0, 0.0],
+                [0.0, 0.0, 1.16 * b],
+            ],
+        );
+        let (x, moved) = linearised(&m, &m.flat()).unwrap();
+        assert!(moved > 1e-3 && moved < 0.02, "{moved}");
+        let xs: Vec<f64> = (0..3).map(|i| x[3 * i]).collect();
+        let ys: Vec<f64> = (0..3).map(|i| x[3 * i + 1]).collect();
+        // On one line: the cross product of the two bond vectors vanishes.
+        let v = |i: usize, j: usize| {
+            nalgebra::Vector3::new(
+                x[3 * j] - x[3 * i],
+                x[3 * j + 1] - x[3 * i + 1],
+                x[3 * j + 2] - x[3 * i + 2],
+            )
+        };
+        assert!(v(0, 1).cross(&v(1, 2)).norm() < 1e-9, "{xs:?} {ys:?}");
+        // Bent by 0.1 Å: not linear, left alone.
+        let bent = Molecule::new(
+            vec![el("H"), el("O"), el("C")],
+            vec![
+                [0.1 * b, 0.0, -0.98 * b],
+                [0.0, 0.0, 0.0],
+                [0.0, 0.0, 1.16 * b],
+            ],
+        );
+        assert!(linearised(&bent, &bent.flat()).is_none());
     }
 }

@@ -369,11 +369,25 @@ fn band_chart(d: &ReactionData) -> String {
             dots: last,
         });
     }
+    // Early bands can pass far above the final one (atoms too close in the start path); keep
+    // the final profile readable: the axis ends at 2× the final band's span above its top.
+    let fin: Vec<f64> = series
+        .last()
+        .map(|s| s.points.iter().map(|p| p.1).collect())
+        .unwrap_or_default();
+    let (lo, hi) = fin
+        .iter()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
+            (a.min(*v), b.max(*v))
+        });
+    let cap = hi + 2.0 * (hi - lo).max(1e-9);
+    let capped = series.iter().any(|s| s.points.iter().any(|p| p.1 > cap));
     format!(
-        "<figure>{}<figcaption>Band energies over {} iterations (light: early, dark: last), relative to the reactant end, {}.</figcaption></figure>",
-        svg::line_chart(&series, "image (0 = reactant end)", &format!("energy ({})", d.unit()), &format!("band of {}", d.name), true),
+        "<figure>{}<figcaption>Band energies over {} iterations (light: early, dark: last), relative to the reactant end, {}.{}</figcaption></figure>",
+        svg::line_chart_capped(&series, "image (0 = reactant end)", &format!("energy ({})", d.unit()), &format!("band of {}", d.name), true, Some(cap)),
         n,
-        esc(d.unit())
+        esc(d.unit()),
+        if capped { " Early iterations above the top of the axis are cut off." } else { "" }
     )
 }
 

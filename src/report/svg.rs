@@ -301,6 +301,19 @@ pub fn line_chart(
     title: &str,
     legend: bool,
 ) -> String {
+    line_chart_capped(series, x_label, y_label, title, legend, None)
+}
+
+/// [`line_chart`] with the y axis ending at `y_cap` when given (lines above it are clipped at
+/// the plot's top edge).
+pub fn line_chart_capped(
+    series: &[Series],
+    x_label: &str,
+    y_label: &str,
+    title: &str,
+    legend: bool,
+    y_cap: Option<f64>,
+) -> String {
     let (w, h) = (520.0, 300.0);
     let pts: Vec<(f64, f64)> = series
         .iter()
@@ -324,6 +337,10 @@ pub fn line_chart(
     } else {
         (xl, xh)
     };
+    let yh = match y_cap {
+        Some(c) if c.is_finite() && c > yl => yh.min(c),
+        _ => yh,
+    };
     let (y0, y1) = padded(
         if pts.is_empty() { 0.0 } else { yl },
         if pts.is_empty() { 1.0 } else { yh },
@@ -344,6 +361,22 @@ pub fn line_chart(
     let mut s = String::new();
     open(&mut s, w, h, title, "chart line-chart");
     axes(&mut s, &f, x_label, y_label, true);
+    // Clip the lines to the plot area (the id is unique per chart title within a page).
+    let clip = format!(
+        "clip-{:x}",
+        title
+            .bytes()
+            .fold(0xcbf2_9ce4_8422_2325_u64, |h, b| (h ^ u64::from(b))
+                .wrapping_mul(0x100_0000_01b3))
+    );
+    let _ = write!(
+        s,
+        r#"<clipPath id="{clip}"><rect x="{}" y="{}" width="{}" height="{}"/></clipPath><g clip-path="url(#{clip})">"#,
+        f.left,
+        f.top - 4.0,
+        w - f.left - f.right + 4.0,
+        h - f.top - f.bottom + 4.0
+    );
     for se in series {
         let mut d = String::new();
         for (k, (x, y)) in se
@@ -384,6 +417,7 @@ pub fn line_chart(
             }
         }
     }
+    s.push_str("</g>");
     if legend {
         let mut lx = f.left + 4.0;
         for se in series.iter().filter(|s| !s.label.is_empty()) {

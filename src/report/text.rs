@@ -26,7 +26,7 @@ pub fn sci(v: Option<f64>) -> String {
             };
             format!("{m:.2}e{e}")
         }
-        Some(x) if x == 0.0 => "0".into(),
+        Some(0.0) => "0".into(),
         Some(x) if x.is_infinite() => "∞".into(),
         _ => "—".into(),
     }

@@ -122,7 +122,7 @@ pub(super) struct Inputs {
     modes: Option<(usize, Option<f64>)>,
     irc: Option<(DVector<f64>, DVector<f64>)>,
     /// The verdict and the ends the barriers use (reactant side, product side).
-    verified: Option<(Verdict, [(DVector<f64>, f64); 2])>,
+    verified: Option<(Verdict, [super::kinetics::Point; 2])>,
 }
 
 fn gather(ctx: &Ctx, ri: usize, inputs: &[(usize, Out)]) -> Inputs {

@@ -61,10 +61,8 @@ fn report_renders_in_headless_chromium_with_its_charts_drawn() {
     let s =
         study::load(&PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/data/studies/mb.yaml"))
             .unwrap();
-    let opts = run::RunOptions {
-        dir: dir.clone(),
-        jobs: 2,
-    };
+    let mut opts = run::RunOptions::new(dir.clone(), 2);
+    opts.progress = cairn::study::progress::ProgressMode::Quiet;
     cairn::driver::block_on(run::run(&s, &opts)).unwrap();
     cairn::report::write(&dir).unwrap();
     let page = dir.join("report.html");

@@ -27,10 +27,8 @@ fn report(dir: &Path) -> std::process::Output {
 
 fn run_mb(dir: &Path) {
     let s = study::load(&data("mb.yaml")).unwrap();
-    let opts = run::RunOptions {
-        dir: dir.to_path_buf(),
-        jobs: 2,
-    };
+    let mut opts = run::RunOptions::new(dir.to_path_buf(), 2);
+    opts.progress = cairn::study::progress::ProgressMode::Quiet;
     cairn::driver::block_on(run::run(&s, &opts)).unwrap();
 }
 

@@ -24,10 +24,8 @@ fn rates_stage_on_xtb_matches_the_formulas_and_reaches_the_report() {
     let top = tempfile::tempdir().unwrap();
     let dir = top.path().join("run");
     let s = study::load(&data("rates-xtb.yaml")).unwrap();
-    let opts = run::RunOptions {
-        dir: dir.clone(),
-        jobs: 2,
-    };
+    let mut opts = run::RunOptions::new(dir.clone(), 2);
+    opts.progress = cairn::study::progress::ProgressMode::Quiet;
     let rep = cairn::driver::block_on(run::run(&s, &opts)).unwrap();
     let sum = &rep.summaries[0];
     assert_eq!(

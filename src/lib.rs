@@ -12,6 +12,7 @@ pub mod executor;
 pub mod geom;
 pub mod molecule;
 pub mod path;
+pub mod report;
 pub mod store;
 pub mod study;
 pub mod thermo;

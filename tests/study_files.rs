@@ -70,7 +70,7 @@ const BAD: &[(&str, &str)] = &[
     ),
     (
         "bad-unknown-stage.yaml",
-        "bad-unknown-stage.yaml:15:5: key \"pipeline entry 3\": unknown stage \"wlak\" (known: relax-ends, band, scan, walk, refine, modes, irc, verify)",
+        "bad-unknown-stage.yaml:15:5: key \"pipeline entry 3\": unknown stage \"wlak\" (known: relax-ends, band, scan, walk, refine, modes, irc, verify, rates)",
     ),
     (
         "bad-stage-option.yaml",
@@ -103,6 +103,26 @@ const BAD: &[(&str, &str)] = &[
     (
         "bad-yaml-syntax.yaml",
         "bad-yaml-syntax.yaml:22:4: YAML syntax error: did not find expected '-' indicator",
+    ),
+    (
+        "bad-rates-unknown-key.yaml",
+        "bad-rates-unknown-key.yaml:19:37: key \"pipeline entry 7.rates.tunneling\": unknown key (known keys here: level, retries, timeout, temperatures, standard-state, low-frequency, tunnelling)",
+    ),
+    (
+        "bad-rates-order.yaml",
+        "bad-rates-order.yaml:17:5: reaction \"hcn-isomer\": key \"pipeline\": stage \"rates\" needs both ends of the step and a checked saddle (from `verify`), but no earlier stage makes one for a reaction started from reactant + product (pipeline: relax-ends, band, refine, modes, rates, irc, verify); put `verify` before `rates`",
+    ),
+    (
+        "bad-rates-temperature.yaml",
+        "bad-rates-temperature.yaml:19:27: key \"pipeline.rates.temperatures\": 0 K is out of range: temperatures must be above 0 K and at most 5000 K",
+    ),
+    (
+        "bad-rates-standard-state.yaml",
+        "bad-rates-standard-state.yaml:19:29: key \"pipeline entry 7.rates.standard-state\": unknown variant `1-atm`, expected `1-bar` or `1-molar`",
+    ),
+    (
+        "bad-rates-model-surface.yaml",
+        "bad-rates-model-surface.yaml:12:5: reaction \"a-to-c\": key \"pipeline\": stage \"rates\" needs real atoms (masses, moments of inertia), but this reaction is on a model surface (pseudo-atom X); leave `rates` out of its pipeline",
     ),
 ];
 

@@ -540,3 +540,109 @@ fn cli_prints_every_term_and_a_json_record() {
         .unwrap();
     assert_eq!(out.status.code(), Some(1));
 }
+
+#[test]
+fn remaining_bad_input_is_an_error_not_a_panic() {
+    let f = [3657.0, 1595.0, 3756.0];
+    let err =
+        |s: Settings, m: &Molecule, f: &[f64]| rrho::thermo(m, f, &s).unwrap_err().to_string();
+    let e = err(
+        Settings {
+            pressure_pa: 0.0,
+            ..Settings::default()
+        },
+        &h2o(),
+        &f,
+    );
+    assert!(e.contains("pressure"), "{e}");
+    let e = err(
+        Settings {
+            multiplicity: 0,
+            ..Settings::default()
+        },
+        &h2o(),
+        &f,
+    );
+    assert!(e.contains("multiplicity"), "{e}");
+    let e = err(
+        Settings {
+            symmetry_number: Some(0),
+            ..Settings::default()
+        },
+        &h2o(),
+        &f,
+    );
+    assert!(e.contains("symmetry number"), "{e}");
+    // A transition state with two imaginary modes is a second-order saddle: refused.
+    let e = err(
+        Settings {
+            kind: Kind::TransitionState,
+            ..Settings::default()
+        },
+        &h2o(),
+        &[-3657.0, -1595.0, 3756.0],
+    );
+    assert!(
+        e.contains("exactly one imaginary") && e.contains("2 given"),
+        "{e}"
+    );
+    // A model-surface pseudo-atom has no mass.
+    let x = Molecule::new(vec![Element::X], vec![[0.1, 0.2, 0.0]]);
+    let e = err(Settings::default(), &x, &[]);
+    assert!(e.contains("real molecule"), "{e}");
+    // Rates: T ≤ 0, molecularity outside 1–3, κ ≤ 0 are errors with the value named.
+    for t in [0.0, -1.0, f64::NAN] {
+        let e = rate::eyring(0.03, t, 1, StandardState::OneBar, 1.0).unwrap_err();
+        assert!(e.to_string().contains("temperature"), "{e}");
+    }
+    for m in [0, 4] {
+        let e = rate::eyring(0.03, 298.15, m, StandardState::OneBar, 1.0).unwrap_err();
+        assert!(e.to_string().contains(&format!("got {m}")), "{e}");
+    }
+    assert!(rate::eyring(0.03, 298.15, 1, StandardState::OneBar, 0.0).is_err());
+    assert!(rate::eyring(f64::NAN, 298.15, 1, StandardState::OneBar, 1.0).is_err());
+}
+
+#[test]
+fn cli_names_the_input_file_and_the_problem() {
+    let dir = tempfile::tempdir().unwrap();
+    std::fs::write(
+        dir.path().join("water.xyz"),
+        "3\nwater\nO 0 0 0\nH 0.75695033 0 0.58588228\nH -0.75695033 0 0.58588228\n",
+    )
+    .unwrap();
+    let inp = dir.path().join("water.yaml");
+    let exe = env!("CARGO_BIN_EXE_cairn");
+    let run = |text: &str, extra: &[&str]| {
+        std::fs::write(&inp, text).unwrap();
+        let out = std::process::Command::new(exe)
+            .arg("thermo")
+            .arg(&inp)
+            .args(extra)
+            .output()
+            .unwrap();
+        (
+            out.status.code(),
+            String::from_utf8_lossy(&out.stderr).to_string(),
+        )
+    };
+    let good = "geometry: water.xyz\nfrequencies_cm1: [3657, 1595, 3756]\n";
+    // Temperature ≤ 0 with otherwise good input.
+    let (code, err) = run(good, &["--temperature", "-3"]);
+    assert_eq!(code, Some(1));
+    assert!(
+        err.contains("water.yaml") && err.contains("temperature"),
+        "{err}"
+    );
+    // Too few frequencies for three atoms.
+    let (code, err) = run("geometry: water.xyz\nfrequencies_cm1: [3657, 1595]\n", &[]);
+    assert_eq!(code, Some(1));
+    assert!(
+        err.contains("water.yaml") && err.contains("3N−6 = 3"),
+        "{err}"
+    );
+    // Pressure ≤ 0.
+    let (code, err) = run(good, &["--pressure", "0"]);
+    assert_eq!(code, Some(1));
+    assert!(err.contains("pressure"), "{err}");
+}

@@ -13,6 +13,7 @@ pub mod irc;
 pub mod modes;
 pub mod record;
 pub mod relax;
+pub mod report;
 pub mod saddle;
 pub mod scan;
 pub mod thermo;
@@ -54,6 +55,8 @@ pub enum Command {
     Run(run::Args),
     /// Show the state of a run directory.
     Status(status::Args),
+    /// Write report.html, report.md and summary.csv from a run directory.
+    Report(report::Args),
     /// Ideal-gas RRHO thermochemistry from a geometry and vibrational wavenumbers (no engine).
     Thermo(thermo::Args),
 }
@@ -80,6 +83,7 @@ pub fn main() -> i32 {
         Command::Modes(a) => modes::run(a),
         Command::Run(a) => run::run(&a),
         Command::Status(a) => status::run(&a),
+        Command::Report(a) => report::run(&a),
         Command::Thermo(a) => thermo::run(a),
     }
 }

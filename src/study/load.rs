@@ -7,6 +7,7 @@ use super::locate::{key, Seg, Source, StudyError};
 use super::model::*;
 use super::raw::*;
 use crate::molecule::Molecule;
+use crate::thermo::StandardState;
 use crate::units::{ANGSTROM_PER_BOHR, BOHR_PER_ANGSTROM};
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
@@ -32,6 +33,10 @@ pub mod builtin {
     /// Å.
     pub const SAME_SPECIES_RMSD: f64 = 0.3;
     pub const VERIFY_MAX_STEPS: u32 = 200;
+    /// K (the thermochemical reference temperature, 25 °C).
+    pub const RATES_TEMPERATURES_K: [f64; 1] = [298.15];
+    /// At most this many temperatures per `rates` stage.
+    pub const RATES_MAX_TEMPERATURES: usize = 50;
 }
 
 /// Read and validate a study file.
@@ -152,6 +157,7 @@ struct Have {
     saddle: bool,
     modes: bool,
     irc: bool,
+    verified: bool,
 }
 
 impl Checker<'_> {
@@ -502,6 +508,34 @@ impl Checker<'_> {
                 )?;
                 range_u("max-steps", o.max_steps, 1, MAX, "max-steps")
             }
+            RawStage::Rates(o) => {
+                if let Some(ts) = &o.temperatures {
+                    if ts.is_empty() || ts.len() > builtin::RATES_MAX_TEMPERATURES {
+                        return Err(self.err(
+                            &at("temperatures"),
+                            reaction,
+                            Some(&full("temperatures")),
+                            format!(
+                                "{} temperatures given; list between 1 and {} (K), e.g. [298.15, 373.15]",
+                                ts.len(),
+                                builtin::RATES_MAX_TEMPERATURES
+                            ),
+                        ));
+                    }
+                    if let Some(t) = ts
+                        .iter()
+                        .find(|t| !(t.is_finite() && **t > 0.0 && **t <= 5000.0))
+                    {
+                        return Err(self.err(
+                            &at("temperatures"),
+                            reaction,
+                            Some(&full("temperatures")),
+                            format!("{t} K is out of range: temperatures must be above 0 K and at most 5000 K"),
+                        ));
+                    }
+                }
+                Ok(())
+            }
         }
     }
 
@@ -712,6 +746,10 @@ impl Checker<'_> {
                     "the saddle's normal modes (to count imaginary modes)",
                     "put `modes` before `verify`",
                 )),
+                StageKind::Rates if !have.verified => Some((
+                    "both ends of the step and a checked saddle (from `verify`)",
+                    "put `verify` before `rates`",
+                )),
                 _ => None,
             };
             if let Some((what, fix)) = missing {
@@ -733,7 +771,16 @@ impl Checker<'_> {
                 StageKind::Refine => have.saddle = true,
                 StageKind::Modes => have.modes = true,
                 StageKind::Irc => have.irc = true,
+                StageKind::Verify => have.verified = true,
                 _ => {}
+            }
+            if kind == StageKind::Rates && base_is_model_surface(&start) {
+                return Err(self.err(
+                    &origin.entry(j),
+                    rn,
+                    Some(origin.key_name()),
+                    "stage \"rates\" needs real atoms (masses, moments of inertia), but this reaction is on a model surface (pseudo-atom X); leave `rates` out of its pipeline",
+                ));
             }
             stages.push(resolve(&s, &level, defaults));
         }
@@ -985,6 +1032,15 @@ impl Checker<'_> {
     }
 }
 
+fn base_is_model_surface(start: &Start) -> bool {
+    match start {
+        Start::Ends { reactant, .. }
+        | Start::Drive { reactant, .. }
+        | Start::Alone { reactant } => reactant.molecule.is_model_surface(),
+        Start::Guess { guess, .. } => guess.molecule.is_model_surface(),
+    }
+}
+
 fn common_of(s: &RawStage) -> (Option<&str>, Option<u32>) {
     match s {
         RawStage::RelaxEnds(o) => (o.level.as_deref(), o.retries),
@@ -995,6 +1051,7 @@ fn common_of(s: &RawStage) -> (Option<&str>, Option<u32>) {
         RawStage::Modes(o) => (o.level.as_deref(), o.retries),
         RawStage::Irc(o) => (o.level.as_deref(), o.retries),
         RawStage::Verify(o) => (o.level.as_deref(), o.retries),
+        RawStage::Rates(o) => (o.level.as_deref(), o.retries),
     }
 }
 
@@ -1008,6 +1065,7 @@ fn timeout_of(s: &RawStage) -> Option<Duration> {
         RawStage::Modes(o) => o.timeout,
         RawStage::Irc(o) => o.timeout,
         RawStage::Verify(o) => o.timeout,
+        RawStage::Rates(o) => o.timeout,
     }
 }
 
@@ -1021,6 +1079,7 @@ fn kind_of(s: &RawStage) -> StageKind {
         RawStage::Modes(_) => StageKind::Modes,
         RawStage::Irc(_) => StageKind::Irc,
         RawStage::Verify(_) => StageKind::Verify,
+        RawStage::Rates(_) => StageKind::Rates,
     }
 }
 
@@ -1035,6 +1094,7 @@ fn options_as_stage(o: &RawOptions, name: &str) -> Option<RawStage> {
         "modes" => RawStage::Modes(o.modes.clone()?),
         "irc" => RawStage::Irc(o.irc.clone()?),
         "verify" => RawStage::Verify(o.verify.clone()?),
+        "rates" => RawStage::Rates(o.rates.clone()?),
         _ => return None,
     })
 }
@@ -1076,6 +1136,18 @@ fn resolve(s: &RawStage, reaction_level: &str, d: &Defaults) -> Stage {
             same_species_rmsd_angstrom: o.same_species_rmsd.unwrap_or(SAME_SPECIES_RMSD),
             max_steps: o.max_steps.unwrap_or(VERIFY_MAX_STEPS),
         },
+        RawStage::Rates(o) => StageSpec::Rates(RatesSpec {
+            temperatures_k: o
+                .temperatures
+                .clone()
+                .unwrap_or_else(|| RATES_TEMPERATURES_K.to_vec()),
+            standard_state: match o.standard_state {
+                Some(StandardStateName::OneMolar) => StandardState::OneMolar,
+                _ => StandardState::OneBar,
+            },
+            low_frequency: o.low_frequency.unwrap_or(LowFrequency::QuasiRrho),
+            tunnelling: o.tunnelling.unwrap_or(Tunnelling::Off),
+        }),
     };
     Stage {
         level: level.unwrap_or(reaction_level).to_string(),

@@ -1,8 +1,9 @@
 //! The validated study: every name resolved, every file read, every stage's options complete.
 
-use super::raw::RefineMethod;
+use super::raw::{LowFrequency, RefineMethod, Tunnelling};
 use crate::engine::Settings;
 use crate::molecule::Molecule;
+use crate::thermo::StandardState;
 use serde::{Deserialize, Serialize};
 use std::path::PathBuf;
 
@@ -172,6 +173,7 @@ pub enum StageKind {
     Modes,
     Irc,
     Verify,
+    Rates,
 }
 
 impl StageKind {
@@ -185,6 +187,7 @@ impl StageKind {
             StageKind::Modes => "modes",
             StageKind::Irc => "irc",
             StageKind::Verify => "verify",
+            StageKind::Rates => "rates",
         }
     }
 }
@@ -258,6 +261,17 @@ pub enum StageSpec {
         same_species_rmsd_angstrom: f64,
         max_steps: u32,
     },
+    Rates(RatesSpec),
+}
+
+/// Options of the `rates` stage, complete.
+#[derive(Debug, Clone, PartialEq)]
+pub struct RatesSpec {
+    /// Temperatures, K (at least one).
+    pub temperatures_k: Vec<f64>,
+    pub standard_state: StandardState,
+    pub low_frequency: LowFrequency,
+    pub tunnelling: Tunnelling,
 }
 
 impl StageSpec {
@@ -271,6 +285,7 @@ impl StageSpec {
             StageSpec::Modes { .. } => StageKind::Modes,
             StageSpec::Irc { .. } => StageKind::Irc,
             StageSpec::Verify { .. } => StageKind::Verify,
+            StageSpec::Rates(_) => StageKind::Rates,
         }
     }
 
@@ -319,6 +334,22 @@ impl StageSpec {
             } => format!(
                 "same species within RMSD {same_species_rmsd_angstrom} Å, max {max_steps} steps per end"
             ),
+            StageSpec::Rates(r) => {
+                let temps: Vec<String> = r.temperatures_k.iter().map(|t| format!("{t}")).collect();
+                format!(
+                    "T = {} K, standard state {}, low frequencies {}, tunnelling {}",
+                    temps.join(", "),
+                    r.standard_state.label(),
+                    match r.low_frequency {
+                        LowFrequency::Harmonic => "harmonic",
+                        LowFrequency::QuasiRrho => "quasi-RRHO",
+                    },
+                    match r.tunnelling {
+                        Tunnelling::Off => "none",
+                        Tunnelling::Wigner => "Wigner",
+                    }
+                )
+            }
         }
     }
 }

@@ -151,6 +151,12 @@ pub fn estimate(stage: &Stage) -> Estimate {
             typical: calls(2 * cap(max_steps, 30), 0),
             at_most: calls(2 * u64::from(max_steps), 0),
         },
+        // Hessians at reactant, product and saddle (the saddle's is a store hit when `modes`
+        // ran at the same level).
+        StageSpec::Rates(_) => Estimate {
+            typical: calls(0, 3),
+            at_most: calls(0, 3),
+        },
     }
 }
 
@@ -218,6 +224,7 @@ impl Plan {
             let mut saddle = None;
             let mut modes = None;
             let mut irc = None;
+            let mut verify = None;
             let mut per_stage = Vec::new();
             for (si, st) in r.stages.iter().enumerate() {
                 if st.kind() == StageKind::RelaxEnds {
@@ -280,6 +287,12 @@ impl Plan {
                         deps.extend(modes);
                         deps.extend(&ends_node);
                     }
+                    StageKind::Rates => {
+                        deps.extend(saddle);
+                        deps.extend(modes);
+                        deps.extend(verify);
+                        deps.extend(&ends_node);
+                    }
                     StageKind::RelaxEnds => {}
                 }
                 let node = push(
@@ -295,6 +308,7 @@ impl Plan {
                     StageKind::Refine => saddle = Some(node),
                     StageKind::Modes => modes = Some(node),
                     StageKind::Irc => irc = Some(node),
+                    StageKind::Verify => verify = Some(node),
                     _ => {}
                 }
                 per_stage.push(Some(node));

@@ -266,6 +266,51 @@ stage_options!(
     }
 );
 
+stage_options!(
+    /// `rates`: thermochemistry at the ends and the saddle (engine Hessians), barriers in
+    /// enthalpy and Gibbs energy, transition-state-theory rate constants and half-lives.
+    RatesOpts {
+        /// Temperatures, K.
+        temperatures: Vec<f64>,
+        /// Standard state of the Gibbs energies: `1-bar` (ideal gas) or `1-molar`.
+        standard_state: StandardStateName,
+        /// Entropy of low-frequency modes: `quasi-rrho` (Grimme 2012) or `harmonic`.
+        low_frequency: LowFrequency,
+        /// Tunnelling correction: `none` or `wigner`.
+        tunnelling: Tunnelling,
+    }
+);
+
+/// Standard states as written in a study file.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize, Serialize)]
+pub enum StandardStateName {
+    #[serde(rename = "1-bar")]
+    OneBar,
+    #[serde(rename = "1-molar")]
+    OneMolar,
+}
+
+/// Treatment of low-frequency modes in the entropy.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize, Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum LowFrequency {
+    /// Every mode a harmonic oscillator.
+    Harmonic,
+    /// Grimme's quasi-RRHO: soft modes' entropy blended into a free rotor's (ω0 = 100 cm⁻¹).
+    QuasiRrho,
+}
+
+/// Tunnelling correction of the rate constants.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize, Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Tunnelling {
+    /// No correction (κ = 1).
+    #[serde(rename = "none")]
+    Off,
+    /// Wigner's κ = 1 + (hcν‡/k_BT)²/24.
+    Wigner,
+}
+
 /// Saddle refinement methods.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize, Serialize)]
 #[serde(rename_all = "kebab-case")]
@@ -286,10 +331,11 @@ pub enum RawStage {
     Modes(ModesOpts),
     Irc(IrcOpts),
     Verify(VerifyOpts),
+    Rates(RatesOpts),
 }
 
 /// Stage names, in the order they usually run.
-pub const STAGE_NAMES: [&str; 8] = [
+pub const STAGE_NAMES: [&str; 9] = [
     "relax-ends",
     "band",
     "scan",
@@ -298,6 +344,7 @@ pub const STAGE_NAMES: [&str; 8] = [
     "modes",
     "irc",
     "verify",
+    "rates",
 ];
 
 impl RawStage {
@@ -311,6 +358,7 @@ impl RawStage {
             RawStage::Modes(_) => "modes",
             RawStage::Irc(_) => "irc",
             RawStage::Verify(_) => "verify",
+            RawStage::Rates(_) => "rates",
         }
     }
 
@@ -324,6 +372,7 @@ impl RawStage {
             "modes" => RawStage::Modes(Default::default()),
             "irc" => RawStage::Irc(Default::default()),
             "verify" => RawStage::Verify(Default::default()),
+            "rates" => RawStage::Rates(Default::default()),
             _ => return None,
         })
     }
@@ -365,6 +414,7 @@ impl<'de> Deserialize<'de> for RawStage {
                     "modes" => RawStage::Modes(options_or_default(&mut map)?),
                     "irc" => RawStage::Irc(options_or_default(&mut map)?),
                     "verify" => RawStage::Verify(options_or_default(&mut map)?),
+                    "rates" => RawStage::Rates(options_or_default(&mut map)?),
                     other => return Err(de::Error::custom(unknown_stage(other))),
                 };
                 if let Some(extra) = map.next_key::<String>()? {
@@ -406,6 +456,8 @@ pub struct RawOptions {
     pub irc: Option<IrcOpts>,
     #[serde(default)]
     pub verify: Option<VerifyOpts>,
+    #[serde(default)]
+    pub rates: Option<RatesOpts>,
 }
 
 impl RawOptions {
@@ -436,6 +488,9 @@ impl RawOptions {
         if self.verify.is_some() {
             v.push("verify");
         }
+        if self.rates.is_some() {
+            v.push("rates");
+        }
         v
     }
 
@@ -450,6 +505,7 @@ impl RawOptions {
             RawStage::Modes(o) => RawStage::Modes(over(o, &self.modes)),
             RawStage::Irc(o) => RawStage::Irc(over(o, &self.irc)),
             RawStage::Verify(o) => RawStage::Verify(over(o, &self.verify)),
+            RawStage::Rates(o) => RawStage::Rates(over(o, &self.rates)),
         }
     }
 }
@@ -460,7 +516,9 @@ trait Merge {
 macro_rules! impl_merge {
     ($($t:ty),*) => {$(impl Merge for $t { fn merge(&self, o: &Self) -> Self { self.merged(o) } })*};
 }
-impl_merge!(RelaxOpts, BandOpts, ScanOpts, WalkOpts, RefineOpts, ModesOpts, IrcOpts, VerifyOpts);
+impl_merge!(
+    RelaxOpts, BandOpts, ScanOpts, WalkOpts, RefineOpts, ModesOpts, IrcOpts, VerifyOpts, RatesOpts
+);
 
 fn over<T: Merge + Clone>(base: &T, top: &Option<T>) -> T {
     match top {

@@ -173,6 +173,38 @@ pub struct Summary {
     pub saddle_xyz: Option<String>,
     pub band_xyz: Option<String>,
     pub irc_xyz: Option<String>,
+    /// From the `rates` stage (absent without it): Gibbs-energy barriers and reaction Gibbs
+    /// energy at `gibbs_temperature_k` (the stage's first temperature).
+    #[serde(default)]
+    pub barrier_forward_gibbs_kcal_mol: Option<f64>,
+    #[serde(default)]
+    pub barrier_reverse_gibbs_kcal_mol: Option<f64>,
+    #[serde(default)]
+    pub reaction_gibbs_kcal_mol: Option<f64>,
+    #[serde(default)]
+    pub gibbs_temperature_k: Option<f64>,
+    /// First-order rate constants and half-lives at each temperature of the `rates` stage.
+    #[serde(default)]
+    pub rate_constants: Option<Vec<RateSummary>>,
+    /// `kinetics.json` (relative to DIR), when the `rates` stage ran.
+    #[serde(default)]
+    pub kinetics_json: Option<String>,
+    /// Why the `rates` stage gave nothing, when it failed (the verdict stands without it).
+    #[serde(default)]
+    pub kinetics_error: Option<String>,
+    /// `band-history.json` (relative to DIR): the band's energies at every iteration.
+    #[serde(default)]
+    pub band_history_json: Option<String>,
+}
+
+/// A rate constant and half-life pair at one temperature (first order).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct RateSummary {
+    pub temperature_k: f64,
+    pub forward_per_s: f64,
+    pub reverse_per_s: f64,
+    pub half_life_forward_s: f64,
+    pub half_life_reverse_s: f64,
 }
 
 impl Summary {
@@ -198,6 +230,14 @@ impl Summary {
             saddle_xyz: None,
             band_xyz: None,
             irc_xyz: None,
+            barrier_forward_gibbs_kcal_mol: None,
+            barrier_reverse_gibbs_kcal_mol: None,
+            reaction_gibbs_kcal_mol: None,
+            gibbs_temperature_k: None,
+            rate_constants: None,
+            kinetics_json: None,
+            kinetics_error: None,
+            band_history_json: None,
         }
     }
 }
@@ -237,6 +277,26 @@ mod tests {
         assert_eq!(v["status"], "verified");
         let back: Summary = serde_json::from_value(v).unwrap();
         assert_eq!(back, s);
+    }
+
+    #[test]
+    fn summaries_written_before_the_rates_stage_still_read() {
+        let mut v: serde_json::Value = serde_json::to_value(Summary::empty("old")).unwrap();
+        let o = v.as_object_mut().unwrap();
+        for k in [
+            "barrier_forward_gibbs_kcal_mol",
+            "barrier_reverse_gibbs_kcal_mol",
+            "reaction_gibbs_kcal_mol",
+            "gibbs_temperature_k",
+            "rate_constants",
+            "kinetics_json",
+            "kinetics_error",
+            "band_history_json",
+        ] {
+            assert!(o.remove(k).is_some(), "{k}");
+        }
+        let back: Summary = serde_json::from_value(v).unwrap();
+        assert_eq!(back, Summary::empty("old"));
     }
 
     #[test]

@@ -81,7 +81,11 @@ pub(super) enum Out {
         forward_kcal: Option<f64>,
         reverse_kcal: Option<f64>,
         reaction_kcal: Option<f64>,
+        /// The step's ends as the barriers use them (geometry, energy): reactant side, product
+        /// side.
+        ends: Box<[(DVector<f64>, f64); 2]>,
     },
+    Kinetics(super::kinetics::KineticsOut),
 }
 
 pub(super) struct Ctx {
@@ -505,11 +509,22 @@ fn summarize(
                 s.imaginary_frequency_cm1 = *imaginary_cm1;
             }
             Some(Out::Saddle { .. }) => s.saddle_xyz = Some(format!("{}/saddle.xyz", r.name)),
+            Some(Out::Kinetics(k)) => {
+                s.kinetics_json = Some(format!("{}/kinetics.json", r.name));
+                s.gibbs_temperature_k = Some(k.gibbs_temperature_k);
+                s.barrier_forward_gibbs_kcal_mol = Some(k.forward_gibbs_kcal);
+                s.barrier_reverse_gibbs_kcal_mol = Some(k.reverse_gibbs_kcal);
+                s.reaction_gibbs_kcal_mol = Some(k.reaction_gibbs_kcal);
+                s.rate_constants = Some(k.rates.clone());
+            }
             Some(Out::Irc { .. }) => s.irc_xyz = Some(format!("{}/irc.xyz", r.name)),
             Some(Out::Guess { .. }) => {
                 if let Some(Task::Stage { stage, .. }) = ctx.plan.tasks.get(*i).map(|t| &t.0) {
                     match r.stages.get(*stage).map(Stage::kind) {
-                        Some(StageKind::Band) => s.band_xyz = Some(format!("{}/band.xyz", r.name)),
+                        Some(StageKind::Band) => {
+                            s.band_xyz = Some(format!("{}/band.xyz", r.name));
+                            s.band_history_json = Some(format!("{}/band-history.json", r.name));
+                        }
                         Some(StageKind::Scan) => s.band_xyz = Some(format!("{}/scan.xyz", r.name)),
                         _ => {}
                     }
@@ -522,6 +537,7 @@ fn summarize(
                 forward_kcal,
                 reverse_kcal,
                 reaction_kcal,
+                ..
             }) => {
                 s.status = *status;
                 s.reason = reason.clone();
@@ -533,8 +549,21 @@ fn summarize(
             _ => {}
         }
     }
+    // A failed `rates` stage leaves the verdict alone: it is reported on its own.
+    let is_rates = |i: &usize| {
+        matches!(ctx.plan.tasks.get(*i).map(|t| &t.0), Some(Task::Stage { stage, .. })
+            if r.stages.get(*stage).map(Stage::kind) == Some(StageKind::Rates))
+    };
+    if let Some(e) = mine
+        .iter()
+        .filter(|i| is_rates(i))
+        .find_map(|i| errors.get(i))
+    {
+        s.kinetics_error = Some(e.clone());
+    }
     let failed: Vec<String> = mine
         .iter()
+        .filter(|i| !is_rates(i))
         .filter_map(|i| {
             errors
                 .get(i)

@@ -114,13 +114,15 @@ pub(super) async fn relax_species(ctx: &Ctx, species: usize, acc: &mut Stats) ->
 }
 
 /// Inputs of a stage task: relaxed ends by role, and outputs of earlier stages.
-struct Inputs {
+pub(super) struct Inputs {
     reactant: Option<(DVector<f64>, Option<f64>)>,
     product: Option<(DVector<f64>, Option<f64>)>,
     guess: Option<(DVector<f64>, Option<DVector<f64>>)>,
     saddle: Option<(DVector<f64>, f64)>,
     modes: Option<(usize, Option<f64>)>,
     irc: Option<(DVector<f64>, DVector<f64>)>,
+    /// The verdict and the ends the barriers use (reactant side, product side).
+    verified: Option<(Verdict, [super::kinetics::Point; 2])>,
 }
 
 fn gather(ctx: &Ctx, ri: usize, inputs: &[(usize, Out)]) -> Inputs {
@@ -136,6 +138,7 @@ fn gather(ctx: &Ctx, ri: usize, inputs: &[(usize, Out)]) -> Inputs {
         saddle: None,
         modes: None,
         irc: None,
+        verified: None,
     };
     for (idx, o) in inputs {
         match o {
@@ -158,7 +161,10 @@ fn gather(ctx: &Ctx, ri: usize, inputs: &[(usize, Out)]) -> Inputs {
                 imaginary_cm1,
             } => g.modes = Some((*n_imaginary, *imaginary_cm1)),
             Out::Irc { forward, reverse } => g.irc = Some((forward.clone(), reverse.clone())),
-            Out::Verified { .. } => {}
+            Out::Verified { status, ends, .. } => {
+                g.verified = Some((*status, (**ends).clone()));
+            }
+            Out::Kinetics(_) => {}
         }
     }
     g
@@ -229,8 +235,23 @@ pub(super) async fn run_stage(
             opts.max_iterations = max_steps as usize;
             let mut algo = neb::Neb::new(start, ends.frame, opts)
                 .map_err(|e| Error::Algorithm(e.to_string()))?;
-            let (v, s) = driver::drive(&mut algo, e, &system).await?;
+            // The energy profile after every evaluated batch: the first batch has every image,
+            // later ones the moving images only.
+            let n_img = images as usize + 2;
+            let mut current = vec![f64::NAN; n_img];
+            let mut history: Vec<Vec<f64>> = Vec::new();
+            let (v, s) = driver::drive_observed(&mut algo, e, &system, |step| {
+                let offset = if step.answers.len() == n_img { 0 } else { 1 };
+                for (k, a) in step.answers.iter().enumerate() {
+                    if let Some(c) = current.get_mut(k + offset) {
+                        *c = a.energy;
+                    }
+                }
+                history.push(current.clone());
+            })
+            .await?;
             add(acc, &s);
+            super::history::write_band_history(ctx, &r.name, &history, m.is_model_surface())?;
             let frames: Vec<(DVector<f64>, String)> = v
                 .images
                 .iter()
@@ -507,6 +528,27 @@ pub(super) async fn run_stage(
             }
             Ok(out)
         }
+        StageSpec::Rates(ref spec) => {
+            let (verdict, ends) = inp.verified.clone().ok_or_else(|| missing("verdict"))?;
+            let saddle = inp.saddle.clone().ok_or_else(|| missing("saddle"))?;
+            // The relaxed ends when the reaction has them (as the verdict's barriers), else the
+            // minimised IRC ends.
+            let pick = |relaxed: &Option<(DVector<f64>, Option<f64>)>,
+                        end: &(DVector<f64>, f64)| {
+                match relaxed {
+                    Some((x, Some(en))) => (x.clone(), *en),
+                    _ => end.clone(),
+                }
+            };
+            let input = super::kinetics::RatesInput {
+                reactant: pick(&inp.reactant, &ends[0]),
+                product: pick(&inp.product, &ends[1]),
+                saddle,
+                verdict,
+                irc_ends: Some(ends),
+            };
+            super::kinetics::run_rates(ctx, r, st, spec, m, input, e, acc).await
+        }
     }
 }
 
@@ -652,6 +694,7 @@ fn judge(
             forward_kcal: Some(kcal(e_ts - e_r)),
             reverse_kcal: Some(kcal(e_ts - e_p)),
             reaction_kcal: Some(kcal(e_p - e_r)),
+            ends: Box::new([(r_end.0.clone(), r_end.1), (p_end.0.clone(), p_end.1)]),
         },
         unexpected,
     )

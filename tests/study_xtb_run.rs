@@ -455,17 +455,18 @@ fn changing_one_level_reruns_only_what_depends_on_it() {
     std::env::set_var("OMP_NUM_THREADS", "1");
     let first = cairn::driver::block_on(cairn::study::run::run(&load(&study), &opts)).unwrap();
     assert_eq!(first.summaries[0].status, Verdict::Verified);
-    // relax ×2, band, refine, modes, irc, verify
-    assert_eq!(first.tasks_run, 7);
+    // relax ×2, band, refine, modes, irc, verify, rates
+    assert_eq!(first.tasks_run, 8);
 
-    // Tighter SCC only for the modes level: the modes stage (its Hessian) and verify (which
-    // uses the mode count) run again; relaxations, band, refine and IRC do not.
+    // Tighter SCC only for the modes level: the modes stage (its Hessian), verify (which
+    // uses the mode count) and rates (after verify; its own Hessians are at the default level,
+    // so it replays them from the store) run again; relaxations, band, refine and IRC do not.
     let text = std::fs::read_to_string(&study)
         .unwrap()
         .replace("accuracy: 0.1", "accuracy: 0.05");
     std::fs::write(&study, text).unwrap();
     let second = cairn::driver::block_on(cairn::study::run::run(&load(&study), &opts)).unwrap();
-    assert_eq!(second.tasks_run, 2, "{:#?}", second.state.tasks);
+    assert_eq!(second.tasks_run, 3, "{:#?}", second.state.tasks);
     let rerun: Vec<&str> = second
         .state
         .tasks
@@ -473,7 +474,17 @@ fn changing_one_level_reruns_only_what_depends_on_it() {
         .filter(|t| t.message.as_deref() != Some("finished in an earlier run"))
         .map(|t| t.stage.as_str())
         .collect();
-    assert_eq!(rerun, ["modes", "verify"]);
+    assert_eq!(rerun, ["modes", "verify", "rates"]);
+    let rates = second
+        .state
+        .tasks
+        .iter()
+        .find(|t| t.stage == "rates")
+        .unwrap();
+    assert_eq!(
+        rates.engine_runs, 0,
+        "the rates stage's Hessians come from the store"
+    );
     let modes = second
         .state
         .tasks

@@ -416,6 +416,7 @@ fn temp_with(path: &Path, bytes: &[u8]) -> Result<tempfile::NamedTempFile> {
                 e,
             )
         })?;
+    crate::xyz::share_readable(tmp.as_file());
     tmp.write_all(bytes)
         .map_err(|e| Error::io(format!("cannot write {}", path.display()), e))?;
     Ok(tmp)
@@ -778,18 +779,9 @@ fn ensure_dir(dir: &Path) -> Result<()> {
 
 /// Temp file in the same directory, write, fsync, rename. The caller fsyncs the directory.
 fn write_atomic_nosync_dir(path: &Path, bytes: &[u8]) -> Result<()> {
-    let dir = path.parent().unwrap_or(Path::new("."));
-    let mut tmp = tempfile::Builder::new()
-        .prefix(".tmp-")
-        .tempfile_in(dir)
-        .map_err(|e| {
-            Error::io(
-                format!("cannot create a temporary file in {}", dir.display()),
-                e,
-            )
-        })?;
-    tmp.write_all(bytes)
-        .and_then(|_| tmp.as_file().sync_all())
+    let tmp = temp_with(path, bytes)?;
+    tmp.as_file()
+        .sync_all()
         .map_err(|e| Error::io(format!("cannot write {}", path.display()), e))?;
     tmp.persist(path)
         .map_err(|e| Error::io(format!("cannot rename into {}", path.display()), e.error))?;

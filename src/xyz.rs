@@ -184,12 +184,21 @@ pub fn write_atomic(path: &Path, text: &str) -> Result<()> {
             e,
         )
     })?;
+    share_readable(tmp.as_file());
     tmp.write_all(text.as_bytes())
         .and_then(|_| tmp.as_file().sync_all())
         .map_err(|e| Error::io(format!("cannot write {}", path.display()), e))?;
     tmp.persist(path)
         .map_err(|e| Error::io(format!("cannot rename into {}", path.display()), e.error))?;
     Ok(())
+}
+
+/// Give a freshly made temporary file the usual mode of output files, rw-r--r--, before it is
+/// renamed into place (temporary files are created rw------- for safety; results in a study
+/// directory are meant to be read by colleagues and by jobs running as other users).
+pub fn share_readable(f: &std::fs::File) {
+    use std::os::unix::fs::PermissionsExt;
+    let _ = f.set_permissions(std::fs::Permissions::from_mode(0o644));
 }
 
 /// Write one geometry to an XYZ file (atomically), using the molecule's own comment.

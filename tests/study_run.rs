@@ -99,6 +99,15 @@ fn muller_brown_study_runs_verifies_and_resumes() {
         let back: cairn::study::record::Summary = serde_json::from_str(&text).unwrap();
         assert_eq!(back.name, r);
     }
+    // Results are readable by colleagues (rw-r--r--, common practice for output files), not
+    // left with the owner-only mode of the temporary files they were written through.
+    {
+        use std::os::unix::fs::PermissionsExt;
+        for f in ["state.json", "a-to-c/summary.json", "a-to-c/saddle.xyz"] {
+            let mode = std::fs::metadata(dir.join(f)).unwrap().permissions().mode() & 0o777;
+            assert_eq!(mode, 0o644, "{f}: {mode:o}");
+        }
+    }
     let state = std::fs::read_to_string(dir.join("state.json")).unwrap();
     let state = cairn::study::record::StateRecord::from_json(&state, "state.json").unwrap();
     assert_eq!(state.tasks.len(), 22);

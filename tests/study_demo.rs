@@ -97,6 +97,29 @@ fn gradient_max(m: &cairn::molecule::Molecule) -> (f64, f64) {
     (out.answer.energy, g.amax())
 }
 
+fn imaginary_modes(m: &cairn::molecule::Molecule) -> usize {
+    let engine = find_engine("xtb", &[("method".to_string(), "gfn2".to_string())].into()).unwrap();
+    let job = Job {
+        elements: m.elements.clone(),
+        coords: m.flat(),
+        charge: m.charge,
+        multiplicity: m.multiplicity,
+        quantity: Quantity::Hessian,
+        threads: 1,
+    };
+    let out = engine.evaluate(&job, 0).unwrap();
+    let h = out.answer.hessian.unwrap();
+    let modes = cairn::algo::freq::analyze(
+        &h,
+        &m.flat(),
+        &m.masses(),
+        cairn::geom::Frame::Molecule,
+        20.0,
+    )
+    .unwrap();
+    modes.n_imaginary
+}
+
 #[test]
 fn demo_ends_are_gfn2_minima_and_the_guess_is_a_plausible_saddle_region() {
     let s = study::load(&demo()).unwrap();
@@ -118,6 +141,11 @@ fn demo_ends_are_gfn2_minima_and_the_guess_is_a_plausible_saddle_region() {
                 g.written
             );
             energies.insert(g.written.clone(), e);
+            // A small gradient alone also passes a planar or linear saddle (a symmetric
+            // structure can have zero forces and a negative curvature): the Hessian must have
+            // no imaginary mode above 20 cm⁻¹ (common practice for "a minimum").
+            let n_imag = imaginary_modes(&g.molecule);
+            assert_eq!(n_imag, 0, "{}: {} is not a minimum", r.name, g.written);
         }
     }
     // The hand-built methoxy guess: well above methoxy but below any bond breaking; the

@@ -14,6 +14,7 @@
 
 pub mod history;
 pub mod kinetics;
+pub mod executors;
 pub mod layout;
 pub mod load;
 pub mod locate;

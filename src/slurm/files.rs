@@ -2,6 +2,7 @@
 //!
 //! ```text
 //! DIR/cluster/submissions.log            one line per accepted sbatch: "<job id> <spec hash>"
+//! DIR/cluster/adoptions.log             one line per recorded job a runner adopted or collected instead of submitting
 //! DIR/cluster/jobs/<hash>/spec.json      what the job computes (engine, settings, jobs, attempts)
 //! DIR/cluster/jobs/<hash>/job.sh         the generated batch script
 //! DIR/cluster/jobs/<hash>/record.json    Slurm job id and state of the submission (atomic)

@@ -231,6 +231,9 @@ impl Cluster {
             if let Some(m) = files::read_json::<EndMarker>(&files::end_path(&dir))? {
                 self.adopted.fetch_add(1, Ordering::SeqCst);
                 let job_id = record.as_ref().and_then(|r| r.job_id);
+                if let Some(id) = job_id {
+                    append_line(&self.root.join("adoptions.log"), &format!("{id} {hash}\n"))?;
+                }
                 return Ok((
                     hash,
                     JobEnd {
@@ -259,6 +262,7 @@ impl Cluster {
             Some(id) => {
                 tracing::info!("adopting Slurm job {id} ({name})");
                 self.adopted.fetch_add(1, Ordering::SeqCst);
+                append_line(&self.root.join("adoptions.log"), &format!("{id} {hash}\n"))?;
                 id
             }
             None => {

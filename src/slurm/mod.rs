@@ -68,6 +68,44 @@ impl SlurmOptions {
     }
 }
 
+/// One line for people: `partition debug, time 10 min, memory 1G, 1 CPU per task, 4 evaluations per job, 1 setup line`.
+pub fn describe_options(o: &SlurmOptions) -> String {
+    let mut parts = vec![format!(
+        "partition {}",
+        o.partition.as_deref().unwrap_or("(cluster default)")
+    )];
+    if let Some(a) = &o.account {
+        parts.push(format!("account {a}"));
+    }
+    if let Some(t) = o.time_limit_minutes {
+        parts.push(format!("time limit {t} min"));
+    }
+    if let Some(m) = &o.memory {
+        parts.push(format!("memory {m}"));
+    }
+    parts.push(format!(
+        "{} CPU{} per task",
+        o.parallel(),
+        if o.parallel() == 1 { "" } else { "s" }
+    ));
+    parts.push(format!(
+        "{} evaluation{} per job",
+        o.group(),
+        if o.group() == 1 { "" } else { "s" }
+    ));
+    if !o.directives.is_empty() {
+        parts.push(format!("#SBATCH {}", o.directives.join(" ")));
+    }
+    if !o.setup.is_empty() {
+        parts.push(format!(
+            "{} setup line{}",
+            o.setup.len(),
+            if o.setup.len() == 1 { "" } else { "s" }
+        ));
+    }
+    parts.join(", ")
+}
+
 /// Resubmissions of one group after node failure or preemption.
 const MAX_REQUEUES: usize = 3;
 

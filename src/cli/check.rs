@@ -132,7 +132,12 @@ pub fn report(study: &Study, plan: &Plan, engines: &[String]) -> String {
         };
         let _ = writeln!(s, "  {:<wl$}  {id}{settings}", l.name);
         if let Some(o) = &l.slurm {
-            let _ = writeln!(s, "  {:<wl$}  slurm: {}", "", crate::slurm::describe_options(o));
+            let _ = writeln!(
+                s,
+                "  {:<wl$}  slurm: {}",
+                "",
+                crate::slurm::describe_options(o)
+            );
         }
     }
     let _ = writeln!(

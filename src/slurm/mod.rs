@@ -121,6 +121,8 @@ pub struct Cluster {
     submitted: AtomicU64,
     adopted: AtomicU64,
     sbatch_nanos: AtomicU64,
+    /// Start of the first and end of the last sbatch call.
+    submit_window: Mutex<Option<(Instant, Instant)>>,
 }
 
 struct Cache {
@@ -178,6 +180,7 @@ impl Cluster {
             submitted: AtomicU64::new(0),
             adopted: AtomicU64::new(0),
             sbatch_nanos: AtomicU64::new(0),
+            submit_window: Mutex::new(None),
         }))
     }
 
@@ -193,9 +196,17 @@ impl Cluster {
     pub fn adopted(&self) -> u64 {
         self.adopted.load(Ordering::SeqCst)
     }
-    /// Seconds spent inside sbatch calls.
+    /// Seconds spent inside sbatch calls (summed over calls, which may overlap).
     pub fn sbatch_seconds(&self) -> f64 {
         self.sbatch_nanos.load(Ordering::SeqCst) as f64 * 1e-9
+    }
+    /// Seconds from the start of the first sbatch call to the end of the last one.
+    pub fn submit_window_seconds(&self) -> f64 {
+        self.submit_window
+            .lock()
+            .unwrap_or_else(|e| e.into_inner())
+            .map(|(a, b)| (b - a).as_secs_f64())
+            .unwrap_or(0.0)
     }
 
     /// An executor for one level: its engine (name and settings, for the worker) and its
@@ -383,8 +394,16 @@ impl Cluster {
         let out = client::run("sbatch", &args)
             .await
             .map_err(|e| Error::io("cannot run sbatch", e))?;
+        let t1 = Instant::now();
         self.sbatch_nanos
-            .fetch_add(t0.elapsed().as_nanos() as u64, Ordering::SeqCst);
+            .fetch_add((t1 - t0).as_nanos() as u64, Ordering::SeqCst);
+        {
+            let mut w = self.submit_window.lock().unwrap_or_else(|e| e.into_inner());
+            *w = Some(match *w {
+                Some((a, b)) => (a.min(t0), b.max(t1)),
+                None => (t0, t1),
+            });
+        }
         let id = match client::parse_sbatch(&out.stdout) {
             Some(id) if out.ok => id,
             _ => {

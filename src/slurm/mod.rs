@@ -315,8 +315,14 @@ impl Cluster {
                 id
             }
             None => {
-                // A resubmission must not pick up the end marker of the previous job.
+                // A resubmission must not pick up the end marker of the previous job, nor its
+                // marks on evaluations it started but did not finish.
                 let _ = std::fs::remove_file(files::end_path(&dir));
+                for k in 0..spec.jobs.len() {
+                    if !files::result_path(&dir, k).exists() {
+                        let _ = std::fs::remove_file(files::started_path(&dir, k));
+                    }
+                }
                 self.submit(&dir, spec, &text, &hash, &name, opts).await?
             }
         };

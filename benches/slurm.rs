@@ -94,14 +94,18 @@ fn main() {
     ];
     for (group, label) in groups {
         let dir = tempfile::tempdir().expect("temporary directory");
-        let cluster = Cluster::with_worker(dir.path(), 0, env!("CARGO_BIN_EXE_cairn"))
+        let cluster = Cluster::with_worker(dir.path(), env!("CARGO_BIN_EXE_cairn"))
             .expect("Slurm client present");
         let opts = SlurmOptions {
             group,
             time_limit_minutes: Some(5),
             ..Default::default()
         };
-        let ex: Arc<dyn Executor> = Arc::new(cluster.executor("bench", "xtb", &settings, opts));
+        let ex: Arc<dyn Executor> = Arc::new(
+            cluster
+                .executor("bench", "xtb", &settings, opts)
+                .with_retries(0),
+        );
         let t0 = Instant::now();
         let r = rt.block_on(ex.run(engine.clone(), jobs.clone()));
         let wall = t0.elapsed().as_secs_f64();

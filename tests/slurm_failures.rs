@@ -45,10 +45,14 @@ fn run_one(root: &Path, retries: usize, delay: u32, opts: SlurmOptions) -> RunRe
     // The worker (in the job) must find the fixture adapter: sbatch exports our environment.
     std::env::set_var("CAIRN_ADAPTERS", fixture_adapters());
     std::env::set_var("OMP_NUM_THREADS", "1");
-    let cluster = Cluster::with_worker(root, retries, cairn_exe()).unwrap();
+    let cluster = Cluster::with_worker(root, cairn_exe()).unwrap();
     let s = settings(delay);
     let engine = find_engine("slow-xtb", &s).unwrap();
-    let ex: Arc<dyn Executor> = Arc::new(cluster.executor("t", "slow-xtb", &s, opts));
+    let ex: Arc<dyn Executor> = Arc::new(
+        cluster
+            .executor("t", "slow-xtb", &s, opts)
+            .with_retries(retries),
+    );
     let mut r =
         cairn::driver::block_on(async move { Ok(ex.run(engine, vec![water()]).await) }).unwrap();
     r.remove(0)

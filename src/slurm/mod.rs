@@ -605,11 +605,7 @@ impl Executor for SlurmExecutor {
             o.group(),
             if o.group() == 1 { "" } else { "s" },
             self.level.retries,
-            if self.level.retries == 1 {
-                "y"
-            } else {
-                "ies"
-            }
+            if self.level.retries == 1 { "y" } else { "ies" }
         )
     }
 

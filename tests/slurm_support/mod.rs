@@ -12,7 +12,11 @@ use std::time::{Duration, Instant};
 /// without checking anything.
 pub fn slurm_ready(test: &str) -> bool {
     if cairn::slurm::which("sinfo").is_none() {
-        eprintln!(
+        // Straight to stderr, not eprintln!: the test harness hides eprintln! output of passing
+        // tests, and a skip must be seen.
+        use std::io::Write;
+        let _ = writeln!(
+            std::io::stderr(),
             "SKIPPED {test}: `sinfo` not found, Slurm is not installed on this machine \
              (CI installs slurm-wlm and munge and starts a local cluster with .ci/slurm/start-local-slurm)"
         );

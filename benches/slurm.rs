@@ -2,13 +2,13 @@
 //!
 //! The same batch of short xtb evaluations (water gradients at displaced geometries, a few tens
 //! of milliseconds each) runs through: the local pool (2 slots, the reference), Slurm with one
-//! job per evaluation, Slurm with the batch grouped into 4 jobs, and Slurm with one job for the
-//! whole batch. The table shows wall time per evaluation, the scheduler overhead per
-//! evaluation (Slurm wall minus local wall, per evaluation), how fast sbatch accepts jobs (jobs
-//! ÷ seconds from the first sbatch call's start to the last one's end; one job alone measures
-//! a single call), and
-//! the gain from grouping (wall of one-job-per-evaluation ÷ wall of the grouped run): ratios
-//! within one run, so a busy machine shifts all rows alike.
+//! job per evaluation, Slurm with the batch grouped into about 4 jobs (⌈n/4⌉ evaluations each),
+//! and Slurm with one job for the whole batch. The table shows wall time per evaluation, the
+//! scheduler overhead per evaluation (Slurm wall minus local wall, per evaluation), how fast
+//! sbatch accepts jobs (jobs ÷ seconds from the first sbatch call's start to the last one's end;
+//! one job alone measures a single call), and the gain from grouping (wall of
+//! one-job-per-evaluation ÷ wall of the grouped run): ratios within one run, so a busy machine
+//! shifts all rows alike.
 //!
 //! `cargo bench --bench slurm` runs 20 evaluations per row; under `cargo test` (no `--bench`
 //! argument) 6, as a smoke test. Without `sinfo` it prints why it skips.
@@ -87,10 +87,11 @@ fn main() {
         sbatch: 0.0,
     });
 
+    let per_group = n.div_ceil(4);
     let groups = [
-        (1, "one job per evaluation"),
-        (n.div_ceil(4), "grouped into 4 jobs"),
-        (n, "one job for the batch"),
+        (1, "one job per evaluation".to_string()),
+        (per_group, format!("grouped, {per_group} per job")),
+        (n, "one job for the batch".to_string()),
     ];
     for (group, label) in groups {
         let dir = tempfile::tempdir().expect("temporary directory");
@@ -147,12 +148,12 @@ fn main() {
     }
     let one = rows[1].wall;
     println!(
-        "\ngain from grouping: one job per evaluation ÷ grouped into 4 jobs = {:.2}×; ÷ one job for the batch = {:.2}×",
+        "\ngain from grouping: one job per evaluation ÷ grouped ({per_group} per job) = {:.2}×; ÷ one job for the batch = {:.2}×",
         one / rows[2].wall,
         one / rows[3].wall
     );
     println!(
-        "Slurm ÷ local wall: {:.1}× (one job per evaluation), {:.1}× (4 jobs), {:.1}× (one job)",
+        "Slurm ÷ local wall: {:.1}× (one job per evaluation), {:.1}× (grouped), {:.1}× (one job)",
         one / local_wall,
         rows[2].wall / local_wall,
         rows[3].wall / local_wall

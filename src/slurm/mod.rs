@@ -48,7 +48,7 @@ pub struct SlurmOptions {
     pub time_limit_minutes: Option<u64>,
     /// `--mem`, as Slurm takes it (`2000`, `2G`).
     pub memory: Option<String>,
-    /// `--cpus-per-task`; also the number of evaluations a job runs side by side.
+    /// `--cpus-per-task`; a job runs cpus-per-task ÷ threads-per-run evaluations side by side.
     pub cpus_per_task: Option<u32>,
     /// Extra `#SBATCH` lines (each an option, e.g. `--qos=short`).
     pub directives: Vec<String>,
@@ -716,7 +716,15 @@ async fn run_group(
             identity: identity.to_string(),
             last_attempt: level.retries,
             timeout_seconds: level.timeout_seconds,
-            parallel: level.options.parallel(),
+            // Each evaluation may use its job's `threads`: run as many side by side as the
+            // job's CPUs hold.
+            parallel: (level.options.parallel()
+                / todo
+                    .iter()
+                    .map(|&i| slots[i].job.threads.max(1))
+                    .max()
+                    .unwrap_or(1))
+            .max(1),
             jobs: todo
                 .iter()
                 .map(|&i| SpecJob::of(&slots[i].job, slots[i].next_attempt))

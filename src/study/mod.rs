@@ -12,9 +12,9 @@
 //! writes there (state record, per-reaction summaries). The format is documented in
 //! DEVELOPERS.md ("Study files") and by the commented `workflows-demo/demo.yaml`.
 
+pub mod executors;
 pub mod history;
 pub mod kinetics;
-pub mod executors;
 pub mod layout;
 pub mod load;
 pub mod locate;

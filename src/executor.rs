@@ -325,9 +325,17 @@ fn single_failure(kind: FailureKind, message: String) -> RunReport {
 
 /// Run one job, retrying within the budget. Blocking.
 pub fn run_with_retries(engine: &dyn Engine, job: &Job, retries: usize) -> RunReport {
+    run_attempts(engine, job, 0, retries)
+}
+
+/// Run one job starting at attempt `first` (so the engine applies remedies 1..first at once)
+/// and going on up to attempt `last` at most. `attempts` in the report counts the attempts made
+/// here. Blocking. Used by executors that resume a job elsewhere (a Slurm job killed at its
+/// time limit is retried from its next attempt).
+pub fn run_attempts(engine: &dyn Engine, job: &Job, first: usize, last: usize) -> RunReport {
     let mut failures = Vec::new();
     let mut unusable_output = String::new();
-    let mut attempt = 0;
+    let mut attempt = first;
     loop {
         let result = engine.evaluate(job, attempt).and_then(|o| {
             match o.answer.validate(job.quantity, job.coords.len()) {
@@ -346,17 +354,17 @@ pub fn run_with_retries(engine: &dyn Engine, job: &Job, retries: usize) -> RunRe
             Ok(o) => {
                 return RunReport {
                     result: Ok(o),
-                    attempts: attempt + 1,
+                    attempts: attempt + 1 - first,
                     failures,
                     unusable_output: String::new(),
                 }
             }
             Err(f) => {
                 failures.push(f.clone());
-                if attempt >= retries || !is_retryable(&f.kind) {
+                if attempt >= last || !is_retryable(&f.kind) {
                     return RunReport {
                         result: Err(f),
-                        attempts: attempt + 1,
+                        attempts: attempt + 1 - first,
                         failures,
                         unusable_output,
                     };

@@ -13,6 +13,7 @@ pub mod geom;
 pub mod molecule;
 pub mod path;
 pub mod report;
+pub mod slurm;
 pub mod store;
 pub mod study;
 pub mod thermo;

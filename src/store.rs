@@ -795,7 +795,7 @@ fn sync_dir(dir: &Path) -> Result<()> {
 }
 
 /// Current UTC time as RFC 3339 (seconds).
-fn now_rfc3339() -> String {
+pub(crate) fn now_rfc3339() -> String {
     let secs = std::time::SystemTime::now()
         .duration_since(std::time::UNIX_EPOCH)
         .map(|d| d.as_secs() as i64)

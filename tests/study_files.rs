@@ -124,6 +124,34 @@ const BAD: &[(&str, &str)] = &[
         "bad-rates-model-surface.yaml",
         "bad-rates-model-surface.yaml:12:5: reaction \"a-to-c\": key \"pipeline\": stage \"rates\" needs real atoms (masses, moments of inertia), but this reaction is on a model surface (pseudo-atom X); leave `rates` out of its pipeline",
     ),
+    (
+        "bad-slurm-unknown-key.yaml",
+        "bad-slurm-unknown-key.yaml:6:13: key \"levels.fast.slurm.partiton\": unknown key (known keys here: partition, account, time-limit, memory, cpus-per-task, directives, setup, group)",
+    ),
+    (
+        "bad-slurm-memory.yaml",
+        "bad-slurm-memory.yaml:8:15: key \"levels.fast.slurm.memory\": memory \"2GB\" is not what sbatch --mem takes",
+    ),
+    (
+        "bad-slurm-directive.yaml",
+        "bad-slurm-directive.yaml:9:11: key \"levels.fast.slurm.directives entry 2\": \"qos=long\" is not an sbatch option",
+    ),
+    (
+        "bad-slurm-setup-newline.yaml",
+        "bad-slurm-setup-newline.yaml:7:15: key \"levels.fast.slurm.setup entry 1\": one line per entry",
+    ),
+    (
+        "bad-slurm-partition.yaml",
+        "bad-slurm-partition.yaml:6:24: key \"levels.fast.slurm.partition\": \"debug short\" is not a Slurm partition name",
+    ),
+    (
+        "bad-slurm-time-limit.yaml",
+        "bad-slurm-time-limit.yaml:6:25: key \"levels.fast.slurm.time-limit\": duration 30 needs a unit: s, m or h",
+    ),
+    (
+        "bad-executor.yaml",
+        "bad-executor.yaml:7:13: key \"defaults.executor\": unknown variant `cloud`, expected `local` or `slurm`",
+    ),
 ];
 
 #[test]
@@ -374,4 +402,46 @@ fn missing_executable_and_bad_settings_are_reported_at_the_level() {
             && err.contains("gfn7"),
         "{err}"
     );
+}
+
+#[test]
+fn the_cluster_example_loads_with_its_slurm_blocks() {
+    let f = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("workflows-demo/cluster.yaml");
+    let s = cairn::study::load(&f).unwrap();
+    assert_eq!(s.defaults.executor, cairn::study::ExecutorKind::Slurm);
+    let fast = s.level("gfn2").unwrap().slurm.clone().unwrap();
+    assert_eq!(
+        fast,
+        cairn::slurm::SlurmOptions {
+            partition: Some("debug".into()),
+            account: None,
+            time_limit_minutes: Some(10),
+            memory: Some("1G".into()),
+            cpus_per_task: Some(1),
+            directives: vec![],
+            setup: vec!["export OMP_NUM_THREADS=1".into()],
+            group: 4,
+        }
+    );
+    let tight = s.level("gfn2-tight").unwrap().slurm.clone().unwrap();
+    assert_eq!(tight.cpus_per_task, Some(2));
+    assert_eq!(tight.time_limit_minutes, Some(20));
+
+    // Slurm takes whole minutes: 90 s becomes 2 minutes, never 1. No block: local defaults.
+    let dir = tempfile::tempdir().unwrap();
+    std::fs::copy(data("geometries/hcn.xyz"), dir.path().join("hcn.xyz")).unwrap();
+    let p = dir.path().join("s.yaml");
+    std::fs::write(
+        &p,
+        "levels:\n  a: {engine: muller-brown, slurm: {time-limit: 90s, memory: 2000, directives: [--qos=short]}}\n  b: {engine: muller-brown}\ndefaults: {level: a}\npipeline: [relax-ends]\nreactions:\n  - {name: r, reactant: hcn.xyz}\n",
+    )
+    .unwrap();
+    let s = cairn::study::load(&p).unwrap();
+    let a = s.level("a").unwrap().slurm.clone().unwrap();
+    assert_eq!(a.time_limit_minutes, Some(2));
+    assert_eq!(a.memory.as_deref(), Some("2000"));
+    assert_eq!(a.directives, vec!["--qos=short".to_string()]);
+    assert_eq!(a.group(), 1);
+    assert_eq!(s.level("b").unwrap().slurm, None);
+    assert_eq!(s.defaults.executor, cairn::study::ExecutorKind::Local);
 }

@@ -131,6 +131,14 @@ pub fn report(study: &Study, plan: &Plan, engines: &[String]) -> String {
             format!("; settings {}", settings.join(", "))
         };
         let _ = writeln!(s, "  {:<wl$}  {id}{settings}", l.name);
+        if let Some(o) = &l.slurm {
+            let _ = writeln!(
+                s,
+                "  {:<wl$}  slurm: {}",
+                "",
+                crate::slurm::describe_options(o)
+            );
+        }
     }
     let _ = writeln!(
         s,
@@ -143,6 +151,14 @@ pub fn report(study: &Study, plan: &Plan, engines: &[String]) -> String {
             .defaults
             .timeout_seconds
             .map_or("none".to_string(), |t| format!("{t} s"))
+    );
+    let _ = writeln!(
+        s,
+        "executor: {}",
+        match study.defaults.executor {
+            study::ExecutorKind::Local => "local (engine processes on this machine)",
+            study::ExecutorKind::Slurm => "slurm (each group of evaluations is one batch job)",
+        }
     );
     let _ = writeln!(s, "\nreactions ({})", study.reactions.len());
     for (ri, r) in study.reactions.iter().enumerate() {

@@ -16,6 +16,7 @@ pub mod relax;
 pub mod report;
 pub mod saddle;
 pub mod scan;
+pub mod slurm_worker;
 pub mod thermo;
 pub mod walk;
 
@@ -59,6 +60,9 @@ pub enum Command {
     Report(report::Args),
     /// Ideal-gas RRHO thermochemistry from a geometry and vibrational wavenumbers (no engine).
     Thermo(thermo::Args),
+    /// Run the evaluations of one Slurm job (used inside the jobs Cairn submits).
+    #[command(hide = true)]
+    SlurmWorker(slurm_worker::Args),
 }
 
 /// Parse arguments, run, and return the process exit status.
@@ -85,5 +89,6 @@ pub fn main() -> i32 {
         Command::Status(a) => status::run(&a),
         Command::Report(a) => report::run(&a),
         Command::Thermo(a) => thermo::run(a),
+        Command::SlurmWorker(a) => slurm_worker::run(&a),
     }
 }

@@ -1,7 +1,7 @@
 //! `cairn run STUDY.yaml --dir DIR`: run every reaction of a study; results, state record and
 //! per-reaction summaries go to DIR (and nowhere else). Running again resumes from DIR's store.
 
-use crate::study::{self, record::Verdict};
+use crate::study::{self, record::Verdict, ExecutorKind};
 use std::path::PathBuf;
 
 #[derive(clap::Args, Debug)]
@@ -17,6 +17,9 @@ pub struct Args {
     /// Progress display: `auto` (bars on a terminal, lines otherwise), `lines`, or `none`.
     #[arg(long, default_value = "auto", value_parser = ["auto", "lines", "none"])]
     pub progress: String,
+    /// Where engine evaluations run; overrides the study's `defaults.executor`.
+    #[arg(long, value_enum)]
+    pub executor: Option<ExecutorKind>,
 }
 
 /// Exit status when every reaction is verified.
@@ -26,16 +29,24 @@ pub const EXIT_ERROR: i32 = 1;
 /// Exit status when the study ran to the end but some reaction is unverified or failed.
 pub const EXIT_NOT_ALL_VERIFIED: i32 = 2;
 
+/// Exit status of a run stopped by Ctrl-C (128 + SIGINT, as shells report it); the study's
+/// Slurm jobs are cancelled first.
+pub const EXIT_INTERRUPTED: i32 = 130;
+
 /// Exit status: 0 when every reaction is verified, 2 when the study ran but some reaction is
-/// unverified or failed (summary.json says why), 1 when it could not run at all.
+/// unverified or failed (summary.json says why), 1 when it could not run at all, 130 when
+/// interrupted by Ctrl-C.
 pub fn run(args: &Args) -> i32 {
-    let s = match study::load(&args.study) {
+    let mut s = match study::load(&args.study) {
         Ok(s) => s,
         Err(e) => {
             eprintln!("error: {e}");
             return EXIT_ERROR;
         }
     };
+    if let Some(x) = args.executor {
+        s.defaults.executor = x;
+    }
     let progress = match args.progress.as_str() {
         "lines" => study::progress::ProgressMode::Lines,
         "none" => study::progress::ProgressMode::Quiet,
@@ -46,11 +57,33 @@ pub fn run(args: &Args) -> i32 {
         jobs: args.jobs,
         progress,
     };
-    let report = match crate::driver::block_on(study::run::run(&s, &opts)) {
-        Ok(r) => r,
+    let rt = match tokio::runtime::Builder::new_multi_thread()
+        .worker_threads(1)
+        .enable_all()
+        .build()
+    {
+        Ok(rt) => rt,
         Err(e) => {
+            eprintln!("error: cannot start the async runtime: {e}");
+            return EXIT_ERROR;
+        }
+    };
+    let outcome = rt.block_on(async {
+        tokio::select! {
+            r = study::run::run(&s, &opts) => Some(r),
+            _ = tokio::signal::ctrl_c() => None,
+        }
+    });
+    let report = match outcome {
+        Some(Ok(r)) => r,
+        Some(Err(e)) => {
             eprintln!("error: {e}");
             return EXIT_ERROR;
+        }
+        None => {
+            // Do not wait for engine runs in progress (local ones get SIGTERM when we exit).
+            rt.shutdown_background();
+            return interrupted(&args.dir);
         }
     };
     if report.nothing_to_do() {
@@ -94,4 +127,22 @@ pub fn run(args: &Args) -> i32 {
     } else {
         EXIT_NOT_ALL_VERIFIED
     }
+}
+
+/// Ctrl-C: cancel the study's own Slurm jobs (by their recorded ids) and say so.
+fn interrupted(dir: &std::path::Path) -> i32 {
+    match crate::slurm::cancel_recorded(&dir.join("cluster")) {
+        Ok(ids) if ids.is_empty() => eprintln!("interrupted"),
+        Ok(ids) => {
+            let list: Vec<String> = ids.iter().map(u64::to_string).collect();
+            eprintln!(
+                "interrupted: cancelled {} Slurm job{} of this study ({}); run again to resume",
+                ids.len(),
+                if ids.len() == 1 { "" } else { "s" },
+                list.join(", ")
+            );
+        }
+        Err(e) => eprintln!("interrupted; cancelling the study's Slurm jobs failed: {e}"),
+    }
+    EXIT_INTERRUPTED
 }

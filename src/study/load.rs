@@ -213,11 +213,16 @@ impl Checker<'_> {
                     format!("{threads} threads per engine run; give a number from 1 to 256"),
                 ));
             }
+            let slurm = match &l.slurm {
+                Some(raw) => Some(self.check_slurm(name, raw)?),
+                None => None,
+            };
             levels.push(Level {
                 name: name.clone(),
                 engine: l.engine.trim().to_string(),
                 settings,
                 threads,
+                slurm,
             });
         }
         let level_names: Vec<&str> = levels.iter().map(|l| l.name.as_str()).collect();
@@ -270,6 +275,7 @@ impl Checker<'_> {
             level,
             retries: d.retries.unwrap_or(builtin::RETRIES),
             timeout_seconds: d.timeout.map(|t| t.seconds()),
+            executor: d.executor.unwrap_or_default(),
         };
 
         // The study's pipeline.
@@ -336,6 +342,111 @@ impl Checker<'_> {
             levels,
             defaults,
             reactions,
+        })
+    }
+
+    /// A level's `slurm:` block: values sbatch would refuse or that could break the generated
+    /// script are errors here, at their line.
+    fn check_slurm(
+        &self,
+        level: &str,
+        raw: &super::raw::RawSlurm,
+    ) -> Result<crate::slurm::SlurmOptions, StudyError> {
+        let at = |k: &str| vec![key("levels"), key(level), key("slurm"), key(k)];
+        let full = |k: &str| format!("levels.{level}.slurm.{k}");
+        let word = |k: &str, v: &Option<String>| -> Result<Option<String>, StudyError> {
+            match v {
+                Some(t)
+                    if t.trim().is_empty()
+                        || t.chars().any(|c| c.is_whitespace() || c.is_control()) =>
+                {
+                    Err(self.err(
+                        &at(k),
+                        None,
+                        Some(&full(k)),
+                        format!("\"{t}\" is not a Slurm {k} name: one word, no spaces"),
+                    ))
+                }
+                other => Ok(other.clone()),
+            }
+        };
+        let partition = word("partition", &raw.partition)?;
+        let account = word("account", &raw.account)?;
+        let memory = match &raw.memory {
+            Some(m) => {
+                let t = m.0.trim();
+                let digits = t.trim_end_matches(['K', 'M', 'G', 'T', 'k', 'm', 'g', 't']);
+                if digits.is_empty()
+                    || !digits.chars().all(|c| c.is_ascii_digit())
+                    || t.len() > digits.len() + 1
+                {
+                    return Err(self.err(
+                        &at("memory"),
+                        None,
+                        Some(&full("memory")),
+                        format!("memory \"{t}\" is not what sbatch --mem takes: a whole number of MB (2000) or with a unit K, M, G, T (2G)"),
+                    ));
+                }
+                Some(t.to_string())
+            }
+            None => None,
+        };
+        if raw.cpus_per_task == Some(0) {
+            return Err(self.err(
+                &at("cpus-per-task"),
+                None,
+                Some(&full("cpus-per-task")),
+                "cpus-per-task must be at least 1",
+            ));
+        }
+        let group = raw.group.unwrap_or(1);
+        if !(1..=10_000).contains(&group) {
+            return Err(self.err(
+                &at("group"),
+                None,
+                Some(&full("group")),
+                format!("group {group} is out of range: evaluations per job, 1 to 10000"),
+            ));
+        }
+        let lines = |k: &str,
+                     v: &Option<Vec<String>>,
+                     directive: bool|
+         -> Result<Vec<String>, StudyError> {
+            let v = v.clone().unwrap_or_default();
+            for (i, l) in v.iter().enumerate() {
+                let here = vec![
+                    key("levels"),
+                    key(level),
+                    key("slurm"),
+                    key(k),
+                    Seg::Index(i),
+                ];
+                let fk = format!("{} entry {}", full(k), i + 1);
+                if l.contains('\n') || l.contains('\r') {
+                    return Err(self.err(
+                        &here,
+                        None,
+                        Some(&fk),
+                        "one line per entry; split it into several entries",
+                    ));
+                }
+                if directive && !l.trim_start().starts_with('-') {
+                    return Err(self.err(&here, None, Some(&fk), format!("\"{l}\" is not an sbatch option; write it as on the sbatch command line, e.g. `--qos=short` (Cairn adds `#SBATCH`)")));
+                }
+            }
+            Ok(v.into_iter().map(|l| l.trim().to_string()).collect())
+        };
+        Ok(crate::slurm::SlurmOptions {
+            partition,
+            account,
+            time_limit_minutes: raw
+                .time_limit
+                .map(|d| ((d.seconds() / 60.0).ceil() as u64).max(1)),
+            memory,
+            cpus_per_task: raw.cpus_per_task,
+            directives: lines("directives", &raw.directives, true)?,
+            setup: lines("setup", &raw.setup, false)?,
+            group: group as usize,
         })
     }
 

@@ -12,6 +12,7 @@
 //! writes there (state record, per-reaction summaries). The format is documented in
 //! DEVELOPERS.md ("Study files") and by the commented `workflows-demo/demo.yaml`.
 
+pub mod executors;
 pub mod history;
 pub mod kinetics;
 pub mod layout;

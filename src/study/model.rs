@@ -42,6 +42,8 @@ pub struct Level {
     pub settings: Settings,
     /// Threads per engine run (the pool runs `--jobs` runs at once, each with this many).
     pub threads: u32,
+    /// Its `slurm:` block (used by the Slurm executor; defaults when absent).
+    pub slurm: Option<crate::slurm::SlurmOptions>,
 }
 
 impl Level {
@@ -64,9 +66,20 @@ pub struct Defaults {
     pub level: String,
     pub retries: u32,
     pub timeout_seconds: Option<f64>,
+    /// Where engine evaluations run (`cairn run --executor` overrides it).
+    pub executor: ExecutorKind,
 }
 
-/// One reaction, ready to plan.
+/// Where engine evaluations run.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Serialize, Deserialize, clap::ValueEnum)]
+#[serde(rename_all = "lowercase")]
+pub enum ExecutorKind {
+    /// A bounded pool of engine processes on this machine (`--jobs`).
+    #[default]
+    Local,
+    /// One Slurm batch job per group of evaluations (see the levels' `slurm:` blocks).
+    Slurm,
+}
 #[derive(Debug, Clone)]
 pub struct Reaction {
     pub name: String,

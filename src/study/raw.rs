@@ -42,6 +42,36 @@ pub struct RawLevel {
     /// Threads each engine run of this level may use (default 1).
     #[serde(default)]
     pub threads: Option<u32>,
+    /// How this level's evaluations run as Slurm jobs (used with the Slurm executor).
+    #[serde(default)]
+    pub slurm: Option<RawSlurm>,
+}
+
+/// `levels.NAME.slurm:` — Slurm job settings for one level.
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields, rename_all = "kebab-case")]
+pub struct RawSlurm {
+    #[serde(default)]
+    pub partition: Option<String>,
+    #[serde(default)]
+    pub account: Option<String>,
+    /// Wall-time limit of one job, with its unit (rounded up to whole minutes).
+    #[serde(default)]
+    pub time_limit: Option<Duration>,
+    /// Memory per job as sbatch's `--mem` takes it: `2000` (MB) or `2G`.
+    #[serde(default)]
+    pub memory: Option<Scalar>,
+    #[serde(default)]
+    pub cpus_per_task: Option<u32>,
+    /// Extra `#SBATCH` lines, e.g. `--qos=short`.
+    #[serde(default)]
+    pub directives: Option<Vec<String>>,
+    /// Shell lines run in the job before the worker, e.g. `module load xtb`.
+    #[serde(default)]
+    pub setup: Option<Vec<String>>,
+    /// Evaluations per job.
+    #[serde(default)]
+    pub group: Option<u32>,
 }
 
 /// `defaults:` — what every reaction gets unless it says otherwise.
@@ -60,6 +90,9 @@ pub struct RawDefaults {
     /// Wall-time limit per engine call.
     #[serde(default)]
     pub timeout: Option<Duration>,
+    /// Where engine evaluations run: `local` (default) or `slurm`.
+    #[serde(default)]
+    pub executor: Option<super::model::ExecutorKind>,
 }
 
 /// One reaction.
@@ -616,7 +649,8 @@ pub fn deserialize_settings<'de, D: Deserializer<'de>>(
 }
 
 /// Any YAML scalar, as text.
-struct Scalar(String);
+#[derive(Debug, Clone)]
+pub struct Scalar(pub String);
 
 impl<'de> Deserialize<'de> for Scalar {
     fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {

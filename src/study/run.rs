@@ -20,7 +20,6 @@ use super::resume;
 use super::stages;
 use crate::driver::{Evaluator, Stats};
 use crate::error::{Error, Result};
-use crate::executor::LocalExecutor;
 use crate::store::Store;
 use nalgebra::DVector;
 use petgraph::graph::NodeIndex;
@@ -123,9 +122,9 @@ pub async fn run(study: &Study, opts: &RunOptions) -> Result<RunReport> {
     let _lock = DirLock::acquire(&opts.dir)?;
     let out = OutputDir::new(&opts.dir);
     let store = Arc::new(Store::open(opts.dir.join("store"))?);
-    let pool = LocalExecutor::new(opts.jobs.max(1));
+    let executors = super::executors::Executors::new(study, &opts.dir, opts.jobs)?;
     // One evaluator per (level, retry budget, time limit) that some task uses; all share the
-    // store and the one bounded pool.
+    // store and one executor set (the bounded local pool, or the Slurm cluster).
     let plan = Plan::new(study);
     let mut wanted: Vec<&Stage> = plan.species.iter().map(|sp| &sp.stage).collect();
     for r in &study.reactions {
@@ -144,8 +143,7 @@ pub async fn run(study: &Study, opts: &RunOptions) -> Result<RunReport> {
         let limit = st.timeout_seconds.map(std::time::Duration::from_secs_f64);
         let engine = crate::engine::find_engine_limited(&l.engine, &l.settings, limit)?;
         identities.insert(l.name.clone(), engine.identity());
-        let executor: Arc<dyn crate::executor::Executor> =
-            Arc::new(pool.sharing(st.retries as usize));
+        let executor = executors.for_stage(l, st.retries as usize, st.timeout_seconds);
         evaluators.insert(
             key,
             Evaluator::new(engine, store.clone(), executor).with_threads(l.threads as usize),

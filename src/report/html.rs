@@ -171,11 +171,7 @@ fn reaction(d: &ReactionData) -> String {
                 r#"<table class="numbers"><thead><tr><th>quantity</th><th>value ({})</th><th>value (kJ/mol)</th></tr></thead><tbody>"#,
                 esc(unit)
             );
-            for (label, v) in [
-                ("forward barrier ΔE‡", s.barrier_forward_kcal_mol),
-                ("reverse barrier ΔE‡", s.barrier_reverse_kcal_mol),
-                ("reaction energy ΔE", s.reaction_energy_kcal_mol),
-            ] {
+            for (label, v) in super::text::energy_rows(s) {
                 let _ = write!(
                     o,
                     "<tr><td>{label}</td><td>{}</td><td>{}</td></tr>",

@@ -4,6 +4,15 @@ use super::{ReactionData, RunData, CAUTION};
 use crate::study::record::Verdict;
 use std::fmt::Write as _;
 
+/// The per-reaction energy rows both reports show: label and value (kcal/mol, or surface units).
+pub fn energy_rows(s: &crate::study::record::Summary) -> [(&'static str, Option<f64>); 3] {
+    [
+        ("forward barrier ΔE‡", s.barrier_forward_kcal_mol),
+        ("reverse barrier ΔE‡", s.barrier_reverse_kcal_mol),
+        ("reaction energy ΔE", s.reaction_energy_kcal_mol),
+    ]
+}
+
 /// A value with a fixed number of decimals, or "—" when missing.
 pub fn fixed(v: Option<f64>, decimals: usize) -> String {
     match v {
@@ -256,11 +265,7 @@ pub fn markdown(data: &RunData) -> String {
             Some(s) => {
                 let _ = writeln!(o, "| quantity | value ({}) | value (kJ/mol) |", d.unit());
                 let _ = writeln!(o, "|---|---:|---:|");
-                for (label, v) in [
-                    ("forward barrier ΔE‡", s.barrier_forward_kcal_mol),
-                    ("reverse barrier ΔE‡", s.barrier_reverse_kcal_mol),
-                    ("reaction energy ΔE", s.reaction_energy_kcal_mol),
-                ] {
+                for (label, v) in energy_rows(s) {
                     let _ = writeln!(
                         o,
                         "| {label} | {} | {} |",

@@ -10,69 +10,9 @@
 
 mod slurm_support;
 
-use cairn::engine::{find_engine, FailureKind, Job, Settings};
-use cairn::executor::{Executor, RunReport};
-use cairn::slurm::{Cluster, SlurmOptions};
+use cairn::engine::FailureKind;
+use cairn::slurm::SlurmOptions;
 use slurm_support::*;
-use std::path::{Path, PathBuf};
-use std::sync::Arc;
-
-fn water() -> Job {
-    let m = cairn::xyz::read(
-        &PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/data/studies/geometries/water.xyz"),
-    )
-    .unwrap();
-    Job {
-        elements: m.elements.clone(),
-        coords: m.flat(),
-        charge: 0,
-        multiplicity: 1,
-        quantity: cairn::eval::Quantity::Gradient,
-        threads: 1,
-    }
-}
-
-fn settings(delay: u32) -> Settings {
-    [
-        ("method".to_string(), "gfn2".to_string()),
-        ("delay".to_string(), delay.to_string()),
-    ]
-    .into()
-}
-
-/// Run one water gradient through a Slurm executor of level "t" with `opts`.
-fn run_one(root: &Path, retries: usize, delay: u32, opts: SlurmOptions) -> RunReport {
-    // The worker (in the job) must find the fixture adapter: sbatch exports our environment.
-    std::env::set_var("CAIRN_ADAPTERS", fixture_adapters());
-    std::env::set_var("OMP_NUM_THREADS", "1");
-    let cluster = Cluster::with_worker(root, cairn_exe()).unwrap();
-    let s = settings(delay);
-    let engine = find_engine("slow-xtb", &s).unwrap();
-    let ex: Arc<dyn Executor> = Arc::new(
-        cluster
-            .executor("t", "slow-xtb", &s, opts)
-            .with_retries(retries),
-    );
-    let mut r =
-        cairn::driver::block_on(async move { Ok(ex.run(engine, vec![water()]).await) }).unwrap();
-    r.remove(0)
-}
-
-/// Job ids recorded under a cluster directory (record.json files).
-fn recorded_ids(root: &Path) -> Vec<u64> {
-    let mut ids = Vec::new();
-    if let Ok(rd) = std::fs::read_dir(root.join("jobs")) {
-        for e in rd.flatten() {
-            if let Ok(t) = std::fs::read_to_string(e.path().join("record.json")) {
-                let v: serde_json::Value = serde_json::from_str(&t).unwrap();
-                if let Some(id) = v["job_id"].as_u64() {
-                    ids.push(id);
-                }
-            }
-        }
-    }
-    ids
-}
 
 #[test]
 fn a_job_exiting_non_zero_is_retried_then_failed_with_slurms_reason() {

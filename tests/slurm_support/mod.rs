@@ -2,8 +2,12 @@
 //! (CI starts one with .ci/slurm/start-local-slurm); without `sinfo` they print why they skip.
 #![allow(dead_code)]
 
+use cairn::engine::{find_engine, Job, Settings};
+use cairn::executor::{Executor, RunReport};
+use cairn::slurm::{Cluster, SlurmOptions};
 use std::path::{Path, PathBuf};
 use std::process::Command;
+use std::sync::Arc;
 use std::time::{Duration, Instant};
 
 /// True when Slurm is there to test against. Without `sinfo` on PATH: prints a clear SKIPPED
@@ -115,4 +119,61 @@ pub fn demo_geometry(dir: &Path, name: &str) {
         .join("workflows-demo/geometries")
         .join(name);
     std::fs::copy(&src, dir.join(name)).expect("copy geometry");
+}
+
+pub fn water() -> Job {
+    let m = cairn::xyz::read(
+        &PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/data/studies/geometries/water.xyz"),
+    )
+    .unwrap();
+    Job {
+        elements: m.elements.clone(),
+        coords: m.flat(),
+        charge: 0,
+        multiplicity: 1,
+        quantity: cairn::eval::Quantity::Gradient,
+        threads: 1,
+    }
+}
+
+pub fn settings(delay: u32) -> Settings {
+    [
+        ("method".to_string(), "gfn2".to_string()),
+        ("delay".to_string(), delay.to_string()),
+    ]
+    .into()
+}
+
+/// Run one water gradient through a Slurm executor of level "t" with `opts`.
+pub fn run_one(root: &Path, retries: usize, delay: u32, opts: SlurmOptions) -> RunReport {
+    // The worker (in the job) must find the fixture adapter: sbatch exports our environment.
+    std::env::set_var("CAIRN_ADAPTERS", fixture_adapters());
+    std::env::set_var("OMP_NUM_THREADS", "1");
+    let cluster = Cluster::with_worker(root, cairn_exe()).unwrap();
+    let s = settings(delay);
+    let engine = find_engine("slow-xtb", &s).unwrap();
+    let ex: Arc<dyn Executor> = Arc::new(
+        cluster
+            .executor("t", "slow-xtb", &s, opts)
+            .with_retries(retries),
+    );
+    let mut r =
+        cairn::driver::block_on(async move { Ok(ex.run(engine, vec![water()]).await) }).unwrap();
+    r.remove(0)
+}
+
+/// Job ids recorded under a cluster directory (record.json files).
+pub fn recorded_ids(root: &Path) -> Vec<u64> {
+    let mut ids = Vec::new();
+    if let Ok(rd) = std::fs::read_dir(root.join("jobs")) {
+        for e in rd.flatten() {
+            if let Ok(t) = std::fs::read_to_string(e.path().join("record.json")) {
+                let v: serde_json::Value = serde_json::from_str(&t).unwrap();
+                if let Some(id) = v["job_id"].as_u64() {
+                    ids.push(id);
+                }
+            }
+        }
+    }
+    ids
 }

@@ -82,33 +82,27 @@ fn demo_has_every_promised_kind_of_reaction() {
     }
 }
 
-fn gradient_max(m: &cairn::molecule::Molecule) -> (f64, f64) {
+/// GFN2-xTB (plain xtb) for `m`.
+fn xtb(m: &cairn::molecule::Molecule, quantity: Quantity) -> cairn::eval::Answer {
     let engine = find_engine("xtb", &[("method".to_string(), "gfn2".to_string())].into()).unwrap();
     let job = Job {
         elements: m.elements.clone(),
         coords: m.flat(),
         charge: m.charge,
         multiplicity: m.multiplicity,
-        quantity: Quantity::Gradient,
+        quantity,
         threads: 1,
     };
-    let out = engine.evaluate(&job, 0).unwrap();
-    let g = out.answer.gradient.unwrap();
-    (out.answer.energy, g.amax())
+    engine.evaluate(&job, 0).unwrap().answer
+}
+
+fn gradient_max(m: &cairn::molecule::Molecule) -> (f64, f64) {
+    let a = xtb(m, Quantity::Gradient);
+    (a.energy, a.gradient.unwrap().amax())
 }
 
 fn imaginary_modes(m: &cairn::molecule::Molecule) -> usize {
-    let engine = find_engine("xtb", &[("method".to_string(), "gfn2".to_string())].into()).unwrap();
-    let job = Job {
-        elements: m.elements.clone(),
-        coords: m.flat(),
-        charge: m.charge,
-        multiplicity: m.multiplicity,
-        quantity: Quantity::Hessian,
-        threads: 1,
-    };
-    let out = engine.evaluate(&job, 0).unwrap();
-    let h = out.answer.hessian.unwrap();
+    let h = xtb(m, Quantity::Hessian).hessian.unwrap();
     let modes = cairn::algo::freq::analyze(
         &h,
         &m.flat(),

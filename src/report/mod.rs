@@ -180,13 +180,11 @@ fn load_reaction(dir: &Path, name: &str, state: &StateRecord) -> Result<Reaction
         Some(t) => {
             let path = p("summary.json");
             let probe: serde_json::Value = parse_json(&t, &path)?;
-            let format = probe.get("format").and_then(|f| f.as_u64()).unwrap_or(0);
-            if format > u64::from(crate::study::record::FORMAT) {
-                return Err(Error::invalid(format!(
-                    "{} has format {format}, newer than this cairn understands; use a newer cairn",
-                    path.display()
-                )));
-            }
+            crate::study::record::refuse_newer(
+                &probe,
+                &path.display().to_string(),
+                crate::study::record::FORMAT,
+            )?;
             Some(parse_json(&t, &path)?)
         }
         None => None,

@@ -2,7 +2,7 @@
 //! written by the `band` stage so a report can draw the band converging.
 
 use super::run::Ctx;
-use crate::error::{Error, Result};
+use crate::error::Result;
 use serde::{Deserialize, Serialize};
 
 /// Version of `band-history.json`.
@@ -26,15 +26,7 @@ pub struct BandHistory {
 impl BandHistory {
     /// Parse, refusing formats newer than this Cairn understands; errors name the file.
     pub fn from_json(text: &str, file: &str) -> Result<BandHistory> {
-        let probe: serde_json::Value =
-            serde_json::from_str(text).map_err(|e| Error::parse(file, e.line(), e.to_string()))?;
-        let format = probe.get("format").and_then(|f| f.as_u64()).unwrap_or(0);
-        if format > u64::from(HISTORY_FORMAT) {
-            return Err(Error::invalid(format!(
-                "{file} has format {format}, newer than this cairn understands ({HISTORY_FORMAT}); use a newer cairn"
-            )));
-        }
-        serde_json::from_str(text).map_err(|e| Error::parse(file, e.line(), e.to_string()))
+        crate::study::record::parse_versioned(text, file, HISTORY_FORMAT)
     }
 }
 

@@ -528,15 +528,7 @@ pub(super) fn compute(
 impl KineticsRecord {
     /// Parse, refusing formats newer than this Cairn understands; errors name the file.
     pub fn from_json(text: &str, file: &str) -> Result<KineticsRecord> {
-        let probe: serde_json::Value =
-            serde_json::from_str(text).map_err(|e| Error::parse(file, e.line(), e.to_string()))?;
-        let format = probe.get("format").and_then(|f| f.as_u64()).unwrap_or(0);
-        if format > u64::from(KINETICS_FORMAT) {
-            return Err(Error::invalid(format!(
-                "{file} has format {format}, newer than this cairn understands ({KINETICS_FORMAT}); use a newer cairn"
-            )));
-        }
-        serde_json::from_str(text).map_err(|e| Error::parse(file, e.line(), e.to_string()))
+        crate::study::record::parse_versioned(text, file, KINETICS_FORMAT)
     }
 }
 

@@ -10,6 +10,30 @@ use serde::{Deserialize, Serialize};
 /// Version of the files written here.
 pub const FORMAT: u32 = 1;
 
+/// Refuse a record whose `format` is newer than `newest` (the files Cairn writes are versioned;
+/// a missing `format` counts as 0). `file` names it in the error.
+pub fn refuse_newer(probe: &serde_json::Value, file: &str, newest: u32) -> crate::Result<()> {
+    let format = probe.get("format").and_then(|f| f.as_u64()).unwrap_or(0);
+    if format > u64::from(newest) {
+        return Err(crate::Error::invalid(format!(
+            "{file} has format {format}, newer than this cairn understands ({newest}); use a newer cairn"
+        )));
+    }
+    Ok(())
+}
+
+/// Parse a versioned JSON record, refusing newer formats; errors name the file and line.
+pub fn parse_versioned<T: serde::de::DeserializeOwned>(
+    text: &str,
+    file: &str,
+    newest: u32,
+) -> crate::Result<T> {
+    let probe: serde_json::Value = serde_json::from_str(text)
+        .map_err(|e| crate::Error::parse(file, e.line(), e.to_string()))?;
+    refuse_newer(&probe, file, newest)?;
+    serde_json::from_str(text).map_err(|e| crate::Error::parse(file, e.line(), e.to_string()))
+}
+
 /// Where a task is.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
@@ -73,15 +97,7 @@ pub struct StateRecord {
 impl StateRecord {
     /// Parse, refusing formats newer than this Cairn understands.
     pub fn from_json(text: &str, file: &str) -> crate::Result<StateRecord> {
-        let probe: serde_json::Value = serde_json::from_str(text)
-            .map_err(|e| crate::Error::parse(file, e.line(), e.to_string()))?;
-        let format = probe.get("format").and_then(|f| f.as_u64()).unwrap_or(0);
-        if format > u64::from(FORMAT) {
-            return Err(crate::Error::invalid(format!(
-                "{file} has format {format}, newer than this cairn understands ({FORMAT}); use a newer cairn"
-            )));
-        }
-        serde_json::from_str(text).map_err(|e| crate::Error::parse(file, e.line(), e.to_string()))
+        parse_versioned(text, file, FORMAT)
     }
 
     /// The status table: reaction, stage, state, evaluations, time.

@@ -43,6 +43,27 @@ pub trait Executor: Send + Sync {
     fn run(&self, engine: Arc<dyn Engine>, jobs: Vec<Job>) -> BoxFuture<'_, Vec<RunReport>>;
 }
 
+tokio::task_local! {
+    /// How urgent the evaluations asked for inside [`with_weight`] are (higher = sooner).
+    static WEIGHT: u64;
+}
+
+/// Run `f` with every engine job it asks for weighted `weight` in the local pool: when slots
+/// are scarce, jobs of a heavier task go first. The study runner passes a task's critical-path
+/// length (its estimated engine calls plus the longest chain after it), so the reaction that
+/// would otherwise finish last is served first and the others fill the gaps around it.
+pub async fn with_weight<F: Future>(weight: u64, f: F) -> F::Output {
+    WEIGHT.scope(weight, f).await
+}
+
+/// The weight of the current task (0 outside [`with_weight`]).
+pub fn current_weight() -> u64 {
+    WEIGHT.try_with(|w| *w).unwrap_or(0)
+}
+
+/// A waiting job's place in the pool: its task's weight first, then smaller batches first.
+pub type Priority = (u64, usize);
+
 /// Whether a failure is worth another attempt.
 pub fn is_retryable(kind: &FailureKind) -> bool {
     !matches!(kind, FailureKind::MissingExecutable | FailureKind::BadInput)
@@ -52,7 +73,9 @@ pub fn is_retryable(kind: &FailureKind) -> bool {
 ///
 /// Attempt 0 is the plain run; on a retryable failure attempts 1, 2, … follow (the engine
 /// applies its remedies for attempts ≥ 1) until one succeeds or `retries` extra attempts are
-/// spent. A job holds its slot across its attempts. An answer that fails
+/// spent. Each attempt is staged (templates, scratch directory, input files) before it takes
+/// a slot and read after it gives the slot back, so a slot is held only while an engine
+/// process runs; a retry waits for a slot again, at the same priority. An answer that fails
 /// [`crate::eval::Answer::validate`] counts as a [`FailureKind::BadOutput`] failure.
 #[derive(Debug)]
 pub struct LocalExecutor {
@@ -120,6 +143,7 @@ impl Executor for LocalExecutor {
     fn run(&self, engine: Arc<dyn Engine>, jobs: Vec<Job>) -> BoxFuture<'_, Vec<RunReport>> {
         Box::pin(async move {
             let n = jobs.len();
+            let weight = current_weight();
             let mut set = tokio::task::JoinSet::new();
             for (i, job) in jobs.into_iter().enumerate() {
                 let engine = engine.clone();
@@ -127,36 +151,14 @@ impl Executor for LocalExecutor {
                 let running = self.running.clone();
                 let peak = self.peak.clone();
                 let retries = self.retries;
-                // Smaller batches first: a lone request is usually one step of a sequential
-                // chain (a scan point, an IRC step, a P-RFO step) that holds up everything
-                // after it, while a big batch (band images, finite differences) can fill
-                // whatever slots are left.
-                let priority = usize::MAX - n;
+                // The task's weight first (see `with_weight`); then smaller batches first: a
+                // lone request is usually one step of a sequential chain (a scan point, an IRC
+                // step, a P-RFO step) that holds up everything after it, while a big batch
+                // (band images, finite differences) can fill whatever slots are left.
+                let priority = (weight, usize::MAX - n);
                 set.spawn(async move {
-                    let report = match sem.acquire(priority).await {
-                        Ok(permit) => {
-                            let engine_name = engine.name().to_string();
-                            let joined = tokio::task::spawn_blocking(move || {
-                                let now = running.fetch_add(1, Ordering::SeqCst) + 1;
-                                peak.fetch_max(now, Ordering::SeqCst);
-                                let r = run_with_retries(engine.as_ref(), &job, retries);
-                                running.fetch_sub(1, Ordering::SeqCst);
-                                drop(permit);
-                                r
-                            })
-                            .await;
-                            joined.unwrap_or_else(|e| {
-                                single_failure(
-                                    FailureKind::Crash,
-                                    format!("the '{engine_name}' engine run panicked ({e}); this is a bug in Cairn, please report it"),
-                                )
-                            })
-                        }
-                        Err(_) => single_failure(
-                            FailureKind::Crash,
-                            "the local executor was shut down".into(),
-                        ),
-                    };
+                    let report =
+                        run_in_pool(engine, job, retries, &sem, priority, &running, &peak).await;
                     (i, report)
                 });
             }
@@ -195,7 +197,7 @@ struct SlotState {
 
 #[derive(Debug)]
 struct Waiter {
-    priority: usize,
+    priority: Priority,
     /// Arrival order (smaller = earlier).
     seq: u64,
     tx: oneshot::Sender<()>,
@@ -264,7 +266,7 @@ impl Slots {
     }
 
     /// Wait for a slot. Err only if the pool went away while waiting.
-    pub async fn acquire(self: &Arc<Self>, priority: usize) -> Result<SlotPermit, ()> {
+    pub async fn acquire(self: &Arc<Self>, priority: Priority) -> Result<SlotPermit, ()> {
         let rx = {
             let mut st = self.lock();
             if st.free > 0 && st.waiters.is_empty() {
@@ -333,43 +335,133 @@ pub fn run_with_retries(engine: &dyn Engine, job: &Job, retries: usize) -> RunRe
 /// here. Blocking. Used by executors that resume a job elsewhere (a Slurm job killed at its
 /// time limit is retried from its next attempt).
 pub fn run_attempts(engine: &dyn Engine, job: &Job, first: usize, last: usize) -> RunReport {
-    let mut failures = Vec::new();
-    let mut unusable_output = String::new();
+    let mut record = Attempts::new(first, last);
     let mut attempt = first;
     loop {
-        let result = engine.evaluate(job, attempt).and_then(|o| {
-            match o.answer.validate(job.quantity, job.coords.len()) {
+        let result = engine.evaluate(job, attempt);
+        if let Some(report) = record.add(job, attempt, result) {
+            return report;
+        }
+        attempt += 1;
+    }
+}
+
+/// One job in the local pool, attempt after attempt: each attempt is staged (inputs written)
+/// before it waits for a slot, holds the slot only while the engine runs, and is read after
+/// the slot is given back.
+async fn run_in_pool(
+    engine: Arc<dyn Engine>,
+    job: Job,
+    retries: usize,
+    slots: &Arc<Slots>,
+    priority: Priority,
+    running: &Arc<AtomicUsize>,
+    peak: &Arc<AtomicUsize>,
+) -> RunReport {
+    let mut record = Attempts::new(0, retries);
+    let mut attempt = 0;
+    let panicked = |e: tokio::task::JoinError| EngineFailure {
+        kind: FailureKind::Crash,
+        message: format!(
+            "the '{}' engine run panicked ({e}); this is a bug in Cairn, please report it",
+            engine.name()
+        ),
+        output: None,
+    };
+    loop {
+        let (e, j) = (engine.clone(), job.clone());
+        let staged = tokio::task::spawn_blocking(move || e.stage(j, attempt))
+            .await
+            .unwrap_or_else(|e| Err(panicked(e)));
+        let result = match staged {
+            Err(f) => Err(f),
+            Ok(mut run) => {
+                let Ok(permit) = slots.acquire(priority).await else {
+                    return single_failure(
+                        FailureKind::Crash,
+                        "the local executor was shut down".into(),
+                    );
+                };
+                let (running, peak) = (running.clone(), peak.clone());
+                tokio::task::spawn_blocking(move || {
+                    let now = running.fetch_add(1, Ordering::SeqCst) + 1;
+                    peak.fetch_max(now, Ordering::SeqCst);
+                    run.execute();
+                    running.fetch_sub(1, Ordering::SeqCst);
+                    drop(permit);
+                    run.finish()
+                })
+                .await
+                .unwrap_or_else(|e| Err(panicked(e)))
+            }
+        };
+        if let Some(report) = record.add(&job, attempt, result) {
+            return report;
+        }
+        attempt += 1;
+    }
+}
+
+/// The record of a job's attempts, from `first` to `last` at most.
+struct Attempts {
+    first: usize,
+    last: usize,
+    failures: Vec<EngineFailure>,
+    unusable_output: String,
+}
+
+impl Attempts {
+    fn new(first: usize, last: usize) -> Attempts {
+        Attempts {
+            first,
+            last,
+            failures: Vec::new(),
+            unusable_output: String::new(),
+        }
+    }
+
+    /// Take one attempt's result (an answer that fails [`crate::eval::Answer::validate`] is a
+    /// [`FailureKind::BadOutput`] failure). The report, once the job is done: on success, on a
+    /// failure not worth retrying, or when the budget is spent.
+    fn add(
+        &mut self,
+        job: &Job,
+        attempt: usize,
+        result: Result<Outcome, EngineFailure>,
+    ) -> Option<RunReport> {
+        let result = result.and_then(
+            |o| match o.answer.validate(job.quantity, job.coords.len()) {
                 Ok(()) => Ok(o),
                 Err(why) => {
-                    unusable_output = o.raw_output;
+                    self.unusable_output = o.raw_output;
                     Err(EngineFailure {
                         kind: FailureKind::BadOutput,
                         message: format!("the answer is unusable: {why}"),
                         output: None,
                     })
                 }
-            }
-        });
+            },
+        );
+        let attempts = attempt + 1 - self.first;
         match result {
-            Ok(o) => {
-                return RunReport {
-                    result: Ok(o),
-                    attempts: attempt + 1 - first,
-                    failures,
-                    unusable_output: String::new(),
-                }
-            }
+            Ok(o) => Some(RunReport {
+                result: Ok(o),
+                attempts,
+                failures: std::mem::take(&mut self.failures),
+                unusable_output: String::new(),
+            }),
             Err(f) => {
-                failures.push(f.clone());
-                if attempt >= last || !is_retryable(&f.kind) {
-                    return RunReport {
+                self.failures.push(f.clone());
+                if attempt >= self.last || !is_retryable(&f.kind) {
+                    Some(RunReport {
                         result: Err(f),
-                        attempts: attempt + 1 - first,
-                        failures,
-                        unusable_output,
-                    };
+                        attempts,
+                        failures: std::mem::take(&mut self.failures),
+                        unusable_output: std::mem::take(&mut self.unusable_output),
+                    })
+                } else {
+                    None
                 }
-                attempt += 1;
             }
         }
     }
@@ -389,10 +481,16 @@ mod tests {
     fn slots_serve_waiters_by_priority_then_arrival() {
         rt().block_on(async {
             let slots = Arc::new(Slots::new(1));
-            let held = slots.acquire(0).await.unwrap();
+            let held = slots.acquire((0, 0)).await.unwrap();
             let order = Arc::new(Mutex::new(Vec::new()));
             let mut set = tokio::task::JoinSet::new();
-            for (name, prio) in [("a", 1), ("b", 5), ("c", 3), ("d", 5)] {
+            for (name, prio) in [
+                ("a", (0, 1)),
+                ("b", (0, 5)),
+                ("c", (0, 3)),
+                ("d", (0, 5)),
+                ("e", (1, 0)),
+            ] {
                 let s = slots.clone();
                 let o = order.clone();
                 set.spawn(async move {
@@ -405,7 +503,8 @@ mod tests {
             }
             drop(held);
             while set.join_next().await.is_some() {}
-            assert_eq!(*order.lock().unwrap(), ["b", "d", "c", "a"]);
+            // The heavier task first, then by batch rank, first come first served among equals.
+            assert_eq!(*order.lock().unwrap(), ["e", "b", "d", "c", "a"]);
             // Every slot came back.
             assert_eq!(slots.lock().free, 1);
         });
@@ -415,9 +514,9 @@ mod tests {
     fn a_waiter_dropped_after_the_hand_over_returns_the_slot() {
         rt().block_on(async {
             let slots = Arc::new(Slots::new(1));
-            let held = slots.acquire(0).await.unwrap();
+            let held = slots.acquire((0, 0)).await.unwrap();
             let s = slots.clone();
-            let waiter = tokio::spawn(async move { s.acquire(1).await.map(|_| ()) });
+            let waiter = tokio::spawn(async move { s.acquire((0, 1)).await.map(|_| ()) });
             tokio::task::yield_now().await;
             waiter.abort();
             drop(held);

@@ -78,6 +78,60 @@ fn standin_values_and_units_are_converted() {
     assert!(max_abs((fd - g2).iter().copied()) < 1e-9);
 }
 
+/// The stand-in adapter with `scratch: memory`, loaded from a copy in `dir`.
+fn memory_standin(dir: &Path, mode: &str) -> Arc<dyn Engine> {
+    let text = std::fs::read_to_string(fixtures().join("adapters/standin.yaml"))
+        .unwrap()
+        .replace("name: standin", "name: memstandin\nscratch: memory")
+        .replace(
+            "{{ adapter_dir }}/../standin.sh",
+            &fixtures().join("standin.sh").display().to_string(),
+        );
+    let path = dir.join("memstandin.yaml");
+    std::fs::write(&path, text).unwrap();
+    let adapter = Adapter::load(&path).unwrap();
+    let s: Settings = [("mode".to_string(), mode.to_string())].into();
+    Arc::new(cairn::engine::adapter::AdapterEngine::new(Arc::new(adapter), &s).unwrap())
+}
+
+fn ran_in(text: &str) -> PathBuf {
+    let line = text
+        .lines()
+        .find_map(|l| l.strip_prefix("ran in "))
+        .unwrap_or_else(|| panic!("no 'ran in' line: {text}"));
+    PathBuf::from(line)
+}
+
+#[test]
+fn scratch_memory_runs_in_ram_and_kept_output_moves_to_disk() {
+    let tmp = tempfile::tempdir().unwrap();
+    // This machine's RAM-backed directory (/dev/shm on Linux; the CI machines have one).
+    let mem = cairn::engine::process::memory_scratch_root()
+        .expect("no tmpfs at /dev/shm on this machine");
+    let ok = memory_standin(tmp.path(), "ok");
+    let o = ok.evaluate(&job(H2O, 0, 1, Quantity::Gradient), 0).unwrap();
+    let dir = ran_in(&o.raw_output);
+    assert!(dir.starts_with(&mem), "ran in {}", dir.display());
+    cairn::engine::process::finish_scratch_removal();
+    assert!(!dir.exists(), "scratch left behind: {}", dir.display());
+
+    // A failed run's directory is kept, but on disk, with the whole output in it.
+    let bad = memory_standin(tmp.path(), "garbage");
+    let f = fail(bad.as_ref(), Quantity::Gradient);
+    let kept = f.output.clone().expect("no kept output");
+    assert!(
+        !kept.starts_with(&mem),
+        "kept in memory: {}",
+        kept.display()
+    );
+    let stdout = std::fs::read_to_string(kept.join("stdout.txt")).unwrap();
+    let was = ran_in(&stdout);
+    assert!(was.starts_with(&mem), "{}", was.display());
+    assert!(!was.exists(), "the copy in memory was not removed");
+    assert!(kept.join("grad.out").exists() && kept.join("geometry.xyz").exists());
+    cleanup(&f);
+}
+
 #[test]
 fn missing_executable_says_what_to_install() {
     let e = engine("missing", &[]);

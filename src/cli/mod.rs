@@ -74,7 +74,7 @@ pub fn main() -> i32 {
             return if e.use_stderr() { 2 } else { 0 };
         }
     };
-    match cli.command {
+    let status = match cli.command {
         Command::Engines(a) => engines::run(&a),
         Command::Evaluate(a) => evaluate::run(a),
         Command::Check(a) => check::run(&a),
@@ -90,5 +90,8 @@ pub fn main() -> i32 {
         Command::Report(a) => report::run(&a),
         Command::Thermo(a) => thermo::run(a),
         Command::SlurmWorker(a) => slurm_worker::run(&a),
-    }
+    };
+    // Scratch directories of finished runs are removed in the background; do not leave any.
+    crate::engine::process::finish_scratch_removal();
+    status
 }

@@ -13,7 +13,7 @@
 
 use super::extract::{self, Layout, Occurrence};
 use super::process::{self, RunSpec, SpawnError};
-use super::{Engine, EngineFailure, FailureKind, Job, Outcome, Settings};
+use super::{Engine, EngineFailure, FailureKind, Job, Outcome, Settings, StagedRun};
 use crate::error::{Error, Result};
 use crate::eval::{Answer, Quantity};
 use crate::molecule::Molecule;
@@ -23,7 +23,7 @@ use nalgebra::{DMatrix, DVector, Matrix3};
 use regex::Regex;
 use serde::Deserialize;
 use sha2::{Digest, Sha256};
-use std::collections::BTreeMap;
+use std::collections::{BTreeMap, HashMap};
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 use std::time::Duration;
@@ -71,6 +71,11 @@ pub struct AdapterFile {
     /// complete, validated output only).
     #[serde(default)]
     pub exit_status: ExitPolicy,
+    /// Where scratch directories go when `CAIRN_SCRATCH` is not set: `disk` (default, the
+    /// system temporary directory) or `memory` (a RAM-backed file system, for engines whose
+    /// files are small).
+    #[serde(default)]
+    pub scratch: ScratchPlace,
     #[serde(default)]
     pub settings: BTreeMap<String, SettingSpec>,
     #[serde(default)]
@@ -94,6 +99,14 @@ pub enum ExitPolicy {
     #[default]
     MustBeZero,
     Ignored,
+}
+
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ScratchPlace {
+    #[default]
+    Disk,
+    Memory,
 }
 
 #[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Deserialize)]
@@ -371,6 +384,35 @@ fn template_env() -> minijinja::Environment<'static> {
     env
 }
 
+/// The template environment runs use: a template's source is its name, and the loader hands
+/// the name back as the source, so each template is compiled once per process and reused by
+/// every run (rendering is then a walk over the compiled template).
+fn run_templates() -> &'static minijinja::Environment<'static> {
+    static ENV: std::sync::OnceLock<minijinja::Environment<'static>> = std::sync::OnceLock::new();
+    ENV.get_or_init(|| {
+        let mut env = template_env();
+        env.set_loader(|source| Ok(Some(source.to_string())));
+        env
+    })
+}
+
+/// A regular expression compiled once per process (the adapter's patterns are applied to every
+/// run's output; compiling them each time cost more than matching).
+fn cached_regex(pattern: &str) -> std::result::Result<Regex, regex::Error> {
+    static CACHE: std::sync::OnceLock<std::sync::Mutex<HashMap<String, Regex>>> =
+        std::sync::OnceLock::new();
+    let cache = CACHE.get_or_init(Default::default);
+    if let Some(re) = cache.lock().unwrap_or_else(|e| e.into_inner()).get(pattern) {
+        return Ok(re.clone());
+    }
+    let re = Regex::new(pattern)?;
+    cache
+        .lock()
+        .unwrap_or_else(|e| e.into_inner())
+        .insert(pattern.to_string(), re.clone());
+    Ok(re)
+}
+
 impl Adapter {
     /// Read and check an adapter file. Errors name the file and, where known, the line.
     pub fn load(path: &Path) -> Result<Adapter> {
@@ -620,7 +662,7 @@ impl Adapter {
                 job.quantity.as_str()
             )
         })?;
-        let env = template_env();
+        let env = run_templates();
         let n = job.elements.len();
         if job.coords.len() != 3 * n {
             return Err(format!(
@@ -635,7 +677,7 @@ impl Adapter {
             base.insert(k.clone(), setting_value(f.settings.get(k), v));
         }
         base.insert("settings".into(), Value::from_serialize(settings));
-        let rotation = self.rotation(&env, &Value::from_serialize(&base))?;
+        let rotation = self.rotation(env, &Value::from_serialize(&base))?;
         let coords = match &rotation {
             Some(r) => rotate_flat(&job.coords, r),
             None => job.coords.clone(),
@@ -692,7 +734,8 @@ impl Adapter {
         let ctx = Value::from_serialize(&ctx);
 
         let render = |what: &str, t: &str| -> std::result::Result<String, String> {
-            env.render_str(t, &ctx)
+            env.get_template(t)
+                .and_then(|tpl| tpl.render(&ctx))
                 .map_err(|e| format!("{what}: template '{t}': {}", describe(&e)))
         };
         let program = render("executable", &f.executable)?;
@@ -705,7 +748,7 @@ impl Adapter {
                 match item {
                     ArgItem::One(t) => args.push(render(label, t)?),
                     ArgItem::When(c) => {
-                        if eval_condition(&env, &c.when, &ctx)
+                        if eval_condition(env, &c.when, &ctx)
                             .map_err(|e| format!("{label}: when '{}': {e}", c.when))?
                         {
                             for t in &c.args {
@@ -751,7 +794,7 @@ impl Adapter {
             };
             let how = if let Some(re) = &r.regex {
                 How::Regex(
-                    Regex::new(re).map_err(|e| e.to_string())?,
+                    cached_regex(re).map_err(|e| e.to_string())?,
                     r.occurrence.unwrap_or(Occurrence::Last),
                 )
             } else if let Some(b) = &r.block {
@@ -759,7 +802,7 @@ impl Adapter {
                     after: b
                         .after
                         .as_deref()
-                        .map(Regex::new)
+                        .map(cached_regex)
                         .transpose()
                         .map_err(|e| e.to_string())?,
                     skip: count(&b.skip, 0, "block.skip")?,
@@ -771,7 +814,7 @@ impl Adapter {
                     after: nr
                         .after
                         .as_deref()
-                        .map(Regex::new)
+                        .map(cached_regex)
                         .transpose()
                         .map_err(|e| e.to_string())?,
                     skip: count(&nr.skip, 0, "numbers.skip")?,
@@ -1018,7 +1061,9 @@ pub struct AdapterEngine {
 
 impl AdapterEngine {
     /// Apply `settings` (unknown keys and disallowed values are errors). The scratch root is
-    /// `CAIRN_SCRATCH` if set, else the system temporary directory.
+    /// `CAIRN_SCRATCH` if set; else, for an adapter with `scratch: memory`, a RAM-backed
+    /// directory when there is one ([`process::memory_scratch_root`]); else the system temporary
+    /// directory.
     pub fn new(adapter: Arc<Adapter>, settings: &Settings) -> Result<AdapterEngine> {
         let f = &adapter.file;
         let shown = adapter.path.display();
@@ -1050,10 +1095,16 @@ impl AdapterEngine {
                 }
             }
         }
+        let scratch_root = std::env::var_os("CAIRN_SCRATCH")
+            .map(PathBuf::from)
+            .or_else(|| match f.scratch {
+                ScratchPlace::Memory => process::memory_scratch_root(),
+                ScratchPlace::Disk => None,
+            });
         Ok(AdapterEngine {
             adapter,
             settings: eff,
-            scratch_root: std::env::var_os("CAIRN_SCRATCH").map(PathBuf::from),
+            scratch_root,
             timeout: None,
         })
     }
@@ -1130,6 +1181,76 @@ impl Engine for AdapterEngine {
     }
 
     fn evaluate(&self, job: &Job, attempt: usize) -> std::result::Result<Outcome, EngineFailure> {
+        let mut run = self.stage_run(job, attempt)?;
+        let fin = run.launch();
+        self.finish_run(job, run, fin)
+    }
+
+    fn stage(
+        self: Arc<Self>,
+        job: Job,
+        attempt: usize,
+    ) -> std::result::Result<Box<dyn StagedRun>, EngineFailure> {
+        let run = self.stage_run(&job, attempt)?;
+        Ok(Box::new(AdapterRun {
+            engine: self,
+            job,
+            run,
+            fin: None,
+        }))
+    }
+}
+
+/// An adapter run between its phases: prepared (inputs written), then finished.
+struct Staging {
+    prepared: Prepared,
+    remedies: Vec<String>,
+    staged: Option<process::Staged>,
+}
+
+impl Staging {
+    fn launch(&mut self) -> std::result::Result<process::Finished, SpawnError> {
+        match self.staged.take() {
+            Some(st) => process::launch(&self.prepared.spec, st),
+            None => Err(SpawnError::Other(
+                "the run was started twice; this is a bug in Cairn".into(),
+                None,
+            )),
+        }
+    }
+}
+
+/// [`AdapterEngine::stage`]'s phases.
+struct AdapterRun {
+    engine: Arc<AdapterEngine>,
+    job: Job,
+    run: Staging,
+    fin: Option<std::result::Result<process::Finished, SpawnError>>,
+}
+
+impl StagedRun for AdapterRun {
+    fn execute(&mut self) {
+        self.fin = Some(self.run.launch());
+    }
+
+    fn finish(self: Box<Self>) -> std::result::Result<Outcome, EngineFailure> {
+        let AdapterRun {
+            engine,
+            job,
+            mut run,
+            fin,
+        } = *self;
+        let fin = match fin {
+            Some(f) => f,
+            None => run.launch(),
+        };
+        engine.finish_run(&job, run, fin)
+    }
+}
+
+impl AdapterEngine {
+    /// Everything before the engine starts: checks, templates, scratch directory and inputs.
+    fn stage_run(&self, job: &Job, attempt: usize) -> std::result::Result<Staging, EngineFailure> {
         let n = job.elements.len();
         if job.elements.iter().any(|e| e.is_pseudo()) {
             return Err(self.fail(
@@ -1182,7 +1303,34 @@ impl Engine for AdapterEngine {
         if let Some(limit) = self.timeout {
             prepared.spec.timeout = limit;
         }
-        let mut fin = match process::run(&prepared.spec) {
+        let staged = match process::stage(&prepared.spec) {
+            Ok(s) => s,
+            Err(SpawnError::Missing(m)) => {
+                return Err(self.fail(FailureKind::MissingExecutable, m, None))
+            }
+            Err(SpawnError::Other(m, kept)) => return Err(self.fail(FailureKind::Crash, m, kept)),
+        };
+        Ok(Staging {
+            prepared,
+            remedies,
+            staged: Some(staged),
+        })
+    }
+
+    /// Everything after the engine ended: failure signatures, the numbers, the checks.
+    fn finish_run(
+        &self,
+        job: &Job,
+        run: Staging,
+        fin: std::result::Result<process::Finished, SpawnError>,
+    ) -> std::result::Result<Outcome, EngineFailure> {
+        let Staging {
+            prepared,
+            remedies,
+            staged: _,
+        } = run;
+        let n = job.elements.len();
+        let mut fin = match fin {
             Ok(f) => f,
             Err(SpawnError::Missing(m)) => {
                 return Err(self.fail(FailureKind::MissingExecutable, m, None))
@@ -1223,7 +1371,7 @@ impl Engine for AdapterEngine {
 
         // Failure signatures first: a known failure is named even if some output exists.
         for fs in &self.adapter.file.failures {
-            let Ok(re) = Regex::new(&fs.pattern) else {
+            let Ok(re) = cached_regex(&fs.pattern) else {
                 continue;
             };
             let places: Vec<String> = fs

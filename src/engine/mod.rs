@@ -8,6 +8,7 @@ pub mod adapter;
 pub mod extract;
 pub mod model;
 pub mod process;
+pub mod spawn;
 
 use crate::elements::Element;
 use crate::eval::{Answer, Quantity};
@@ -80,8 +81,40 @@ pub struct Outcome {
     pub seconds: f64,
 }
 
+/// One engine run split in phases, so a pool holds an engine slot only while the engine
+/// itself runs: [`Engine::stage`] prepares everything before the slot is taken (templates,
+/// scratch directory, input files), [`StagedRun::execute`] runs the engine with the slot held,
+/// and [`StagedRun::finish`] reads the answer after the slot is given back.
+pub trait StagedRun: Send {
+    /// Run the engine. The only phase that needs an engine slot; called once.
+    fn execute(&mut self);
+    /// The answer (or the failure), read after [`StagedRun::execute`].
+    fn finish(self: Box<Self>) -> Result<Outcome, EngineFailure>;
+}
+
+/// The phases of an engine that does all its work in one call: everything happens in
+/// `execute` (the default of [`Engine::stage`]).
+struct WholeRun<E: Engine + ?Sized> {
+    engine: std::sync::Arc<E>,
+    job: Job,
+    attempt: usize,
+    result: Option<Result<Outcome, EngineFailure>>,
+}
+
+impl<E: Engine + ?Sized> StagedRun for WholeRun<E> {
+    fn execute(&mut self) {
+        self.result = Some(self.engine.evaluate(&self.job, self.attempt));
+    }
+    fn finish(self: Box<Self>) -> Result<Outcome, EngineFailure> {
+        match self.result {
+            Some(r) => r,
+            None => self.engine.evaluate(&self.job, self.attempt),
+        }
+    }
+}
+
 /// Anything that evaluates energies, gradients and Hessians.
-pub trait Engine: Send + Sync {
+pub trait Engine: Send + Sync + 'static {
     /// Short name, e.g. "xtb" or "muller-brown".
     fn name(&self) -> &str;
     /// Everything that changes results (adapter name and version, its settings), as a canonical
@@ -94,6 +127,20 @@ pub trait Engine: Send + Sync {
     /// Run one evaluation. `attempt` counts from 0; adapters apply their remedies in order for
     /// attempts ≥ 1.
     fn evaluate(&self, job: &Job, attempt: usize) -> Result<Outcome, EngineFailure>;
+    /// The same evaluation in phases (see [`StagedRun`]); an error here is the attempt's
+    /// failure, found before any slot was taken. The default does everything in `execute`.
+    fn stage(
+        self: std::sync::Arc<Self>,
+        job: Job,
+        attempt: usize,
+    ) -> Result<Box<dyn StagedRun>, EngineFailure> {
+        Ok(Box::new(WholeRun {
+            engine: self,
+            job,
+            attempt,
+            result: None,
+        }))
+    }
 }
 
 /// The built-in Müller–Brown surface as an engine.

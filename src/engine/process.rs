@@ -10,9 +10,8 @@
 
 use std::collections::BTreeMap;
 use std::io::Read;
-use std::os::unix::process::{CommandExt, ExitStatusExt};
+use std::os::unix::process::ExitStatusExt;
 use std::path::{Path, PathBuf};
-use std::process::{Command, Stdio};
 use std::sync::mpsc;
 use std::time::{Duration, Instant};
 
@@ -113,14 +112,132 @@ impl Finished {
     }
 
     /// Keep the scratch directory (it is not deleted) and return its path. `stdout.txt` and
-    /// `stderr.txt` are written into it, so the engine's whole output is there.
+    /// `stderr.txt` are written into it, so the engine's whole output is there. A directory in
+    /// memory ([`memory_scratch_root`]) is moved to the system temporary directory first: kept
+    /// output is for reading later and must not hold RAM or vanish at a reboot.
     pub fn keep(&mut self) -> PathBuf {
         if let Some(t) = self.scratch.take() {
             let _ = std::fs::write(t.path().join("stdout.txt"), &self.stdout);
             let _ = std::fs::write(t.path().join("stderr.txt"), &self.stderr);
-            self.kept = Some(t.keep());
+            let in_memory = memory_scratch_root().is_some_and(|m| t.path().starts_with(m));
+            let moved = if in_memory {
+                move_to_disk(t.path())
+            } else {
+                None
+            };
+            self.kept = Some(match moved {
+                Some(p) => p, // `t` is dropped: the copy in memory is removed.
+                None => t.keep(),
+            });
         }
         self.kept.clone().unwrap_or_default()
+    }
+}
+
+impl Drop for Finished {
+    fn drop(&mut self) {
+        if let Some(t) = self.scratch.take() {
+            remove_later(t);
+        }
+    }
+}
+
+/// A RAM-backed directory for scratch, if this machine has one we may write: `/dev/shm` when
+/// it is a tmpfs. Creating and deleting a dozen small files per run on a disk file system costs
+/// the kernel real time (on ext4, new inodes are checked against recently deleted ones); on
+/// tmpfs it does not.
+pub fn memory_scratch_root() -> Option<PathBuf> {
+    const TMPFS_MAGIC: i64 = 0x0102_1994;
+    // SAFETY: statfs and access only read the NUL-terminated path and fill our struct.
+    let ok = unsafe {
+        let mut st: libc::statfs = std::mem::zeroed();
+        libc::statfs(c"/dev/shm".as_ptr(), &mut st) == 0
+            && st.f_type as i64 == TMPFS_MAGIC
+            && libc::access(c"/dev/shm".as_ptr(), libc::W_OK | libc::X_OK) == 0
+    };
+    ok.then(|| PathBuf::from("/dev/shm"))
+}
+
+/// Copy a kept directory from memory into a new directory under the system temporary
+/// directory; its path, or None if that failed (the original is then kept where it is).
+fn move_to_disk(dir: &Path) -> Option<PathBuf> {
+    fn copy_tree(from: &Path, to: &Path) -> std::io::Result<()> {
+        for e in std::fs::read_dir(from)? {
+            let e = e?;
+            let dest = to.join(e.file_name());
+            if e.file_type()?.is_dir() {
+                std::fs::create_dir(&dest)?;
+                copy_tree(&e.path(), &dest)?;
+            } else {
+                std::fs::copy(e.path(), &dest)?;
+            }
+        }
+        Ok(())
+    }
+    let dest = tempfile::Builder::new()
+        .prefix("cairn-kept-")
+        .tempdir_in(std::env::temp_dir())
+        .ok()?;
+    copy_tree(dir, dest.path()).ok()?;
+    Some(dest.keep())
+}
+
+/// Scratch directories of finished runs are removed by one background thread, so removing
+/// an engine's files (a dozen syscalls or more) does not hold up the engine slot.
+/// [`finish_scratch_removal`] waits until every directory handed over so far is gone.
+enum Reap {
+    Remove(tempfile::TempDir),
+    Flush(mpsc::Sender<()>),
+}
+
+fn reaper() -> Option<&'static std::sync::Mutex<mpsc::Sender<Reap>>> {
+    static TX: std::sync::OnceLock<Option<std::sync::Mutex<mpsc::Sender<Reap>>>> =
+        std::sync::OnceLock::new();
+    TX.get_or_init(|| {
+        let (tx, rx) = mpsc::channel::<Reap>();
+        std::thread::Builder::new()
+            .name("cairn-scratch-removal".into())
+            .spawn(move || {
+                for msg in rx {
+                    match msg {
+                        Reap::Remove(dir) => drop(dir),
+                        Reap::Flush(done) => {
+                            let _ = done.send(());
+                        }
+                    }
+                }
+            })
+            .ok()
+            .map(|_| std::sync::Mutex::new(tx))
+    })
+    .as_ref()
+}
+
+fn remove_later(dir: tempfile::TempDir) {
+    let handed = reaper().and_then(|m| {
+        m.lock()
+            .unwrap_or_else(|e| e.into_inner())
+            .send(Reap::Remove(dir))
+            .err()
+    });
+    // No background thread (or it is gone): remove it here.
+    if let Some(mpsc::SendError(Reap::Remove(dir))) = handed {
+        drop(dir);
+    }
+}
+
+/// Wait until every scratch directory of a finished run so far has been removed. Call before
+/// the process exits (the removal thread does not outlive `main`).
+pub fn finish_scratch_removal() {
+    let Some(m) = reaper() else { return };
+    let (tx, rx) = mpsc::channel();
+    let sent = m
+        .lock()
+        .unwrap_or_else(|e| e.into_inner())
+        .send(Reap::Flush(tx))
+        .is_ok();
+    if sent {
+        let _ = rx.recv();
     }
 }
 
@@ -202,6 +319,28 @@ fn missing_message(spec: &RunSpec) -> String {
 ///
 /// A non-zero exit status is not an error here: the caller decides from the output.
 pub fn run(spec: &RunSpec) -> Result<Finished, SpawnError> {
+    launch(spec, stage(spec)?)
+}
+
+/// A scratch directory with the run's input files written, and the executable found: all a
+/// run needs before the engine starts. Made by [`stage`], used by [`launch`]. Dropped unused,
+/// the directory is removed.
+#[derive(Debug)]
+pub struct Staged {
+    exe: PathBuf,
+    dir: tempfile::TempDir,
+}
+
+impl Staged {
+    /// The scratch directory.
+    pub fn dir(&self) -> &Path {
+        self.dir.path()
+    }
+}
+
+/// Find the executable, make a fresh scratch directory and write the input files into it.
+/// No engine runs yet; a pool can do this before the run takes its engine slot.
+pub fn stage(spec: &RunSpec) -> Result<Staged, SpawnError> {
     let Some(exe) = which(&spec.program) else {
         return Err(SpawnError::Missing(missing_message(spec)));
     };
@@ -247,27 +386,24 @@ pub fn run(spec: &RunSpec) -> Result<Finished, SpawnError> {
             ));
         }
     }
+    Ok(Staged { exe, dir: scratch })
+}
 
-    let mut cmd = Command::new(&exe);
-    cmd.args(&spec.args)
-        .envs(&spec.env)
-        .current_dir(scratch.path())
-        .stdin(Stdio::null())
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .process_group(0);
+/// Start the engine in a staged scratch directory and wait for it (or its time limit).
+///
+/// A non-zero exit status is not an error here: the caller decides from the output.
+pub fn launch(spec: &RunSpec, staged: Staged) -> Result<Finished, SpawnError> {
+    let Staged { exe, dir: scratch } = staged;
     // The engine runs in its own process group, so a Ctrl-C at the terminal does not reach it;
     // instead it gets SIGTERM when the thread that started it dies (that thread blocks in
-    // `run` until the engine has finished, so this only fires when Cairn itself is killed).
-    // SAFETY: prctl is async-signal-safe and touches no memory of the parent.
-    unsafe {
-        cmd.pre_exec(|| {
-            libc::prctl(libc::PR_SET_PDEATHSIG, libc::SIGTERM);
-            Ok(())
-        });
-    }
+    // `launch` until the engine has finished, so this only fires when Cairn itself is killed).
+    let env: Vec<(String, String)> = spec
+        .env
+        .iter()
+        .map(|(k, v)| (k.clone(), v.clone()))
+        .collect();
     let start = Instant::now();
-    let mut child = match cmd.spawn() {
+    let child = match super::spawn::spawn(&exe, &spec.args, &env, scratch.path()) {
         Ok(c) => c,
         Err(e) if e.kind() == std::io::ErrorKind::NotFound => {
             return Err(SpawnError::Missing(missing_message(spec)))
@@ -279,9 +415,9 @@ pub fn run(spec: &RunSpec) -> Result<Finished, SpawnError> {
             ))
         }
     };
-    let pid = child.id() as libc::pid_t;
-    let out_reader = drain(child.stdout.take());
-    let err_reader = drain(child.stderr.take());
+    let pid = child.pid;
+    let out_reader = drain(Some(std::fs::File::from(child.stdout)));
+    let err_reader = drain(Some(std::fs::File::from(child.stderr)));
 
     // The waiter waits for the exit *without reaping* (WNOWAIT), so the process-group id cannot
     // be reused while we clean up the group; then it kills leftovers and reaps.
@@ -289,8 +425,7 @@ pub fn run(spec: &RunSpec) -> Result<Finished, SpawnError> {
     std::thread::spawn(move || {
         wait_no_reap(pid);
         kill_group(pid, libc::SIGKILL);
-        let status = child.wait();
-        let _ = tx.send(status);
+        let _ = tx.send(reap(pid));
     });
 
     let mut timed_out = false;
@@ -364,6 +499,22 @@ fn wait_no_reap(pid: libc::pid_t) {
     }
 }
 
+/// Reap `pid` (EINTR retried).
+fn reap(pid: libc::pid_t) -> std::io::Result<std::process::ExitStatus> {
+    loop {
+        let mut status = 0;
+        // SAFETY: waitpid writes the status into the integer we own.
+        let rc = unsafe { libc::waitpid(pid, &mut status, 0) };
+        if rc == pid {
+            return Ok(std::process::ExitStatus::from_raw(status));
+        }
+        let e = std::io::Error::last_os_error();
+        if e.raw_os_error() != Some(libc::EINTR) {
+            return Err(e);
+        }
+    }
+}
+
 fn kill_group(pgid: libc::pid_t, sig: libc::c_int) {
     if pgid > 1 {
         // SAFETY: plain syscall; a negative pid addresses the process group we created.
@@ -397,6 +548,7 @@ mod tests {
             .stdout
             .contains(dir.file_name().unwrap().to_str().unwrap()));
         drop(f);
+        finish_scratch_removal();
         assert!(
             !dir.exists(),
             "scratch directory removed after a normal run"

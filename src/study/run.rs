@@ -233,9 +233,10 @@ pub async fn run(study: &Study, opts: &RunOptions) -> Result<RunReport> {
             ran.insert(i);
             let c = ctx.clone();
             let fp = fingerprints.clone();
+            let weight = queue.priority(n).unwrap_or(0);
             running.spawn(async move {
                 let t0 = std::time::Instant::now();
-                let res = run_task(&c, n, &inputs).await;
+                let res = crate::executor::with_weight(weight, run_task(&c, n, &inputs)).await;
                 let secs = t0.elapsed().as_secs_f64();
                 // File the marker once the task's own files are written.
                 let res = match res {
@@ -339,6 +340,7 @@ pub async fn run(study: &Study, opts: &RunOptions) -> Result<RunReport> {
         "summary.json",
         &(serde_json::to_string_pretty(&all).unwrap_or_default() + "\n"),
     )?;
+    crate::engine::process::finish_scratch_removal();
     Ok(RunReport {
         state,
         summaries,

@@ -346,6 +346,38 @@ mod tests {
     }
 
     #[test]
+    fn many_starts_from_several_threads_each_get_their_own_arguments() {
+        // The children share this process's memory until they exec: starts from concurrent
+        // threads must not see each other's argument or environment arrays.
+        let dir = tempfile::tempdir().unwrap();
+        std::thread::scope(|sc| {
+            for t in 0..8 {
+                let dir = dir.path();
+                sc.spawn(move || {
+                    for k in 0..25 {
+                        let s = spawn(
+                            Path::new("/bin/sh"),
+                            &[
+                                "-c".into(),
+                                "echo \"$1 $CAIRN_SPAWN_K\"".into(),
+                                "sh".into(),
+                                format!("t{t}"),
+                            ],
+                            &[("CAIRN_SPAWN_K".into(), format!("k{k}"))],
+                            dir,
+                        )
+                        .unwrap();
+                        let out = read_all(s.stdout);
+                        let status = reap(s.pid);
+                        assert!(libc::WIFEXITED(status) && libc::WEXITSTATUS(status) == 0);
+                        assert_eq!(out, format!("t{t} k{k}\n"));
+                    }
+                });
+            }
+        });
+    }
+
+    #[test]
     fn a_missing_directory_or_program_is_an_error_naming_the_step() {
         let dir = tempfile::tempdir().unwrap();
         let e = spawn(Path::new("/bin/sh"), &[], &[], &dir.path().join("gone")).unwrap_err();

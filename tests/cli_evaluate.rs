@@ -1,30 +1,13 @@
 //! `cairn evaluate` end to end: output, the store (cached on the second run), exit statuses
 //! and error messages.
 
+mod cli_support;
+mod engine_support;
+
+use cli_support::{cairn, json_ok as json, stderr, stdout};
+use engine_support::{job, tblite};
 use std::path::Path;
-use std::process::{Command, Output};
-
-fn cairn(args: &[&str], cwd: &Path) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_cairn"))
-        .args(args)
-        .current_dir(cwd)
-        .env_remove("CAIRN_STORE")
-        .env("OMP_NUM_THREADS", "1")
-        .output()
-        .unwrap()
-}
-
-fn stdout(o: &Output) -> String {
-    String::from_utf8_lossy(&o.stdout).into_owned()
-}
-fn stderr(o: &Output) -> String {
-    String::from_utf8_lossy(&o.stderr).into_owned()
-}
-
-fn json(o: &Output) -> serde_json::Value {
-    assert_eq!(o.status.code(), Some(0), "stderr: {}", stderr(o));
-    serde_json::from_str(&stdout(o)).unwrap_or_else(|e| panic!("{e}: {}", stdout(o)))
-}
+use std::process::Command;
 
 /// Müller–Brown minimum A, (−0.558224, 1.441726), E = −146.699517 (Müller & Brown 1979 as
 /// commonly quoted; from memory).
@@ -254,44 +237,6 @@ fn negative_charge_is_accepted() {
 /// Formyl radical HCO (a doublet), Å, a geometry of our own away from the minimum.
 const HCO_XYZ: &str = "3\nformyl radical\nC 0.0 0.0 0.0\nO 1.18 0.0 0.02\nH -0.55 0.95 0.0\n";
 
-/// GFN2-xTB energy and gradient from tblite (pip package; tests/reference/tblite_ref.py), for
-/// positions given in Å (converted with the CODATA 2018 bohr, 0.529177210903 Å).
-fn tblite(numbers: &[u32], angstrom: &[[f64; 3]], charge: i32, uhf: u32) -> (f64, Vec<f64>) {
-    use std::io::Write;
-    let bohr: Vec<[f64; 3]> = angstrom
-        .iter()
-        .map(|r| r.map(|v| v / 0.529_177_210_903))
-        .collect();
-    let req = serde_json::json!({
-        "numbers": numbers, "positions_bohr": bohr, "charge": charge, "uhf": uhf,
-        "method": "GFN2-xTB", "accuracy": 0.01, "etemp_kelvin": 300.0,
-    });
-    let script = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/reference/tblite_ref.py");
-    let mut child = Command::new("python3")
-        .arg(script)
-        .env("OMP_NUM_THREADS", "1")
-        .stdin(std::process::Stdio::piped())
-        .stdout(std::process::Stdio::piped())
-        .spawn()
-        .expect("python3 runs");
-    child
-        .stdin
-        .take()
-        .unwrap()
-        .write_all(req.to_string().as_bytes())
-        .unwrap();
-    let out = child.wait_with_output().unwrap();
-    assert!(out.status.success(), "tblite_ref.py failed");
-    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
-    let g = v["gradient"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .flat_map(|r| r.as_array().unwrap().iter().map(|x| x.as_f64().unwrap()))
-        .collect();
-    (v["energy"].as_f64().unwrap(), g)
-}
-
 #[test]
 fn xtb_doublet_matches_tblite_and_is_cached() {
     let dir = tempfile::tempdir().unwrap();
@@ -313,11 +258,16 @@ fn xtb_doublet_matches_tblite_and_is_cached() {
     assert_eq!(first["cached"], false);
     assert_eq!(first["engine"], "xtb");
     assert_eq!(first["units"]["energy"], "hartree");
+    // The same geometry as HCO_XYZ, through tests/reference/tblite_ref.py.
+    let hco = [
+        ("C", [0.0, 0.0, 0.0]),
+        ("O", [1.18, 0.0, 0.02]),
+        ("H", [-0.55, 0.95, 0.0]),
+    ];
     let (e_ref, g_ref) = tblite(
-        &[6, 8, 1],
-        &[[0.0, 0.0, 0.0], [1.18, 0.0, 0.02], [-0.55, 0.95, 0.0]],
-        0,
-        1,
+        &job(&hco, 0, 2, cairn::eval::Quantity::Gradient),
+        "GFN2-xTB",
+        0.01,
     );
     let e = first["energy_hartree"].as_f64().unwrap();
     // Agreement seen between xtb 6.5.1 and tblite: ≤ 5e-9 Eh, ≤ 2.4e-8 Eh/bohr at accuracy

@@ -3,27 +3,9 @@
 //! Check values: Müller–Brown stationary points and Hessian eigenvalues from
 //! ../shared/notes/reference-values.md §1.1 [C] (Müller & Brown, Theor. Chim. Acta 53, 75 (1979)).
 
-use std::path::Path;
-use std::process::{Command, Output};
+mod cli_support;
 
-fn cairn(args: &[&str], cwd: &Path) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_cairn"))
-        .args(args)
-        .current_dir(cwd)
-        .env_remove("CAIRN_STORE")
-        .env("OMP_NUM_THREADS", "1")
-        .output()
-        .unwrap()
-}
-
-fn stderr(o: &Output) -> String {
-    String::from_utf8_lossy(&o.stderr).into_owned()
-}
-
-fn json(o: &Output) -> serde_json::Value {
-    let out = String::from_utf8_lossy(&o.stdout);
-    serde_json::from_str(&out).unwrap_or_else(|e| panic!("{e}: {out} / {}", stderr(o)))
-}
+use cli_support::{cairn, json, stderr};
 
 fn num(v: &serde_json::Value) -> f64 {
     v.as_f64().unwrap()

@@ -496,35 +496,20 @@ pub struct RawOptions {
 impl RawOptions {
     /// Names of the stages this reaction changes options of.
     pub fn stage_names(&self) -> Vec<&'static str> {
-        let mut v = Vec::new();
-        if self.relax_ends.is_some() {
-            v.push("relax-ends");
-        }
-        if self.band.is_some() {
-            v.push("band");
-        }
-        if self.scan.is_some() {
-            v.push("scan");
-        }
-        if self.walk.is_some() {
-            v.push("walk");
-        }
-        if self.refine.is_some() {
-            v.push("refine");
-        }
-        if self.modes.is_some() {
-            v.push("modes");
-        }
-        if self.irc.is_some() {
-            v.push("irc");
-        }
-        if self.verify.is_some() {
-            v.push("verify");
-        }
-        if self.rates.is_some() {
-            v.push("rates");
-        }
-        v
+        [
+            ("relax-ends", self.relax_ends.is_some()),
+            ("band", self.band.is_some()),
+            ("scan", self.scan.is_some()),
+            ("walk", self.walk.is_some()),
+            ("refine", self.refine.is_some()),
+            ("modes", self.modes.is_some()),
+            ("irc", self.irc.is_some()),
+            ("verify", self.verify.is_some()),
+            ("rates", self.rates.is_some()),
+        ]
+        .into_iter()
+        .filter_map(|(name, given)| given.then_some(name))
+        .collect()
     }
 
     /// `stage` with this reaction's options laid over it.

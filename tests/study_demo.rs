@@ -18,6 +18,7 @@ fn demo_passes_cairn_check() {
         .arg("check")
         .arg(demo())
         .current_dir(cwd.path())
+        .env_remove("CAIRN_SCRATCH")
         .output()
         .unwrap();
     let text = String::from_utf8_lossy(&out.stdout);
@@ -27,9 +28,15 @@ fn demo_passes_cairn_check() {
         "{text}{}",
         String::from_utf8_lossy(&out.stderr)
     );
+    // xtb's adapter asks for RAM scratch; the CI machines have a roomy tmpfs at /dev/shm.
+    assert!(
+        cairn::engine::process::memory_scratch_root().is_some(),
+        "this machine has no usable /dev/shm"
+    );
     for want in [
         "study \"cold-cloud-sampler\"",
         "reactions (5)",
+        "executable /usr/bin/xtb, scratch in /dev/shm (RAM)",
         "CHN (geometries/hnc.xyz) at level gfn2: hcn-to-hnc (product), hnc-uphill (reactant)",
         "drive: atoms 1-6 from 2.947 Å to 1.800 Å",
     ] {

@@ -64,9 +64,16 @@ fn check_engines(study: &Study) -> Result<Vec<String>, StudyError> {
         let adapter = crate::engine::adapter::Adapter::load(&path)
             .map_err(|e| fail(format!("engine \"{}\" is not usable: {e}", l.engine)))?;
         let (exe, found) = adapter.executable();
+        let scratch = match adapter.scratch_root() {
+            Some(r) if crate::engine::process::memory_scratch_root().as_ref() == Some(&r) => {
+                format!("{} (RAM)", r.display())
+            }
+            Some(r) => r.display().to_string(),
+            None => std::env::temp_dir().display().to_string(),
+        };
         match found {
             Some(p) => out.push(format!(
-                "{} {} (adapter {}), executable {}",
+                "{} {} (adapter {}), executable {}, scratch in {scratch}",
                 l.engine,
                 adapter.file.version.0,
                 path.display(),

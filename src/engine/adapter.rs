@@ -606,6 +606,18 @@ impl Adapter {
         }
     }
 
+    /// Where this adapter's runs make their scratch directories: `CAIRN_SCRATCH` if set; else,
+    /// with `scratch: memory`, a RAM-backed directory when there is one
+    /// ([`process::memory_scratch_root`]); else `None`, the system temporary directory.
+    pub fn scratch_root(&self) -> Option<PathBuf> {
+        std::env::var_os("CAIRN_SCRATCH")
+            .map(PathBuf::from)
+            .or_else(|| match self.file.scratch {
+                ScratchPlace::Memory => process::memory_scratch_root(),
+                ScratchPlace::Disk => None,
+            })
+    }
+
     /// The executable as it will be looked up (the `executable` template rendered with
     /// `adapter_dir`, `name` and `version` only), and where it was found, if anywhere.
     pub fn executable(&self) -> (String, Option<PathBuf>) {
@@ -1095,12 +1107,7 @@ impl AdapterEngine {
                 }
             }
         }
-        let scratch_root = std::env::var_os("CAIRN_SCRATCH")
-            .map(PathBuf::from)
-            .or_else(|| match f.scratch {
-                ScratchPlace::Memory => process::memory_scratch_root(),
-                ScratchPlace::Disk => None,
-            });
+        let scratch_root = adapter.scratch_root();
         Ok(AdapterEngine {
             adapter,
             settings: eff,

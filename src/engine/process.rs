@@ -143,20 +143,32 @@ impl Drop for Finished {
 }
 
 /// A RAM-backed directory for scratch, if this machine has one we may write: `/dev/shm` when
-/// it is a tmpfs. Creating and deleting a dozen small files per run on a disk file system costs
-/// the kernel real time (on ext4, new inodes are checked against recently deleted ones); on
-/// tmpfs it does not.
+/// it is a tmpfs with at least [`MEMORY_SCRATCH_MIN_FREE`] bytes free (a container's default
+/// 64 MB `/dev/shm` is passed over). Creating and deleting a dozen small files per run on a disk
+/// file system costs the kernel real time (on ext4, new inodes are checked against recently
+/// deleted ones); on tmpfs it does not.
 pub fn memory_scratch_root() -> Option<PathBuf> {
-    const TMPFS_MAGIC: i64 = 0x0102_1994;
     // SAFETY: statfs and access only read the NUL-terminated path and fill our struct.
     let ok = unsafe {
         let mut st: libc::statfs = std::mem::zeroed();
         libc::statfs(c"/dev/shm".as_ptr(), &mut st) == 0
-            && st.f_type as i64 == TMPFS_MAGIC
+            && memory_fs_usable(
+                st.f_type as i64,
+                (st.f_bavail as u64).saturating_mul(st.f_bsize as u64),
+            )
             && libc::access(c"/dev/shm".as_ptr(), libc::W_OK | libc::X_OK) == 0
     };
     ok.then(|| PathBuf::from("/dev/shm"))
 }
+
+/// A file system of type `f_type` with `free` bytes available is fit for RAM scratch.
+fn memory_fs_usable(f_type: i64, free: u64) -> bool {
+    const TMPFS_MAGIC: i64 = 0x0102_1994;
+    f_type == TMPFS_MAGIC && free >= MEMORY_SCRATCH_MIN_FREE
+}
+
+/// Free space `/dev/shm` must have to be used for scratch: 256 MiB.
+pub const MEMORY_SCRATCH_MIN_FREE: u64 = 256 << 20;
 
 /// Copy a kept directory from memory into a new directory under the system temporary
 /// directory; its path, or None if that failed (the original is then kept where it is).
@@ -527,6 +539,19 @@ fn kill_group(pgid: libc::pid_t, sig: libc::c_int) {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn ram_scratch_needs_a_tmpfs_with_room() {
+        let tmpfs = 0x0102_1994; // TMPFS_MAGIC, linux/magic.h
+        let ext4 = 0xEF53; // EXT4_SUPER_MAGIC
+        assert!(memory_fs_usable(tmpfs, 24 << 30));
+        assert!(memory_fs_usable(tmpfs, MEMORY_SCRATCH_MIN_FREE));
+        assert!(
+            !memory_fs_usable(tmpfs, 64 << 20),
+            "a container's default /dev/shm"
+        );
+        assert!(!memory_fs_usable(ext4, 24 << 30), "not RAM");
+    }
 
     #[test]
     fn runs_in_fresh_scratch_with_files_and_env() {

@@ -524,4 +524,112 @@ mod tests {
             assert_eq!(slots.lock().free, 1, "the slot is not lost");
         });
     }
+
+    /// An engine whose staging and running each take 60 ms and count how many of each are
+    /// under way at once; its first attempt of every job fails (retryable).
+    struct Phased {
+        staging: AtomicUsize,
+        running: AtomicUsize,
+        most_staging: AtomicUsize,
+        most_running: AtomicUsize,
+    }
+
+    struct PhasedRun {
+        engine: Arc<Phased>,
+        attempt: usize,
+    }
+
+    impl Engine for Phased {
+        fn name(&self) -> &str {
+            "phased"
+        }
+        fn identity(&self) -> String {
+            "test:phased".into()
+        }
+        fn evaluate(&self, _: &Job, _: usize) -> Result<Outcome, EngineFailure> {
+            unreachable!("the pool runs engines in phases")
+        }
+        fn stage(
+            self: Arc<Self>,
+            _job: Job,
+            attempt: usize,
+        ) -> Result<Box<dyn crate::engine::StagedRun>, EngineFailure> {
+            let now = self.staging.fetch_add(1, Ordering::SeqCst) + 1;
+            self.most_staging.fetch_max(now, Ordering::SeqCst);
+            std::thread::sleep(std::time::Duration::from_millis(60));
+            self.staging.fetch_sub(1, Ordering::SeqCst);
+            Ok(Box::new(PhasedRun {
+                engine: self,
+                attempt,
+            }))
+        }
+    }
+
+    impl crate::engine::StagedRun for PhasedRun {
+        fn execute(&mut self) {
+            let e = &self.engine;
+            let now = e.running.fetch_add(1, Ordering::SeqCst) + 1;
+            e.most_running.fetch_max(now, Ordering::SeqCst);
+            std::thread::sleep(std::time::Duration::from_millis(60));
+            e.running.fetch_sub(1, Ordering::SeqCst);
+        }
+        fn finish(self: Box<Self>) -> Result<Outcome, EngineFailure> {
+            if self.attempt == 0 {
+                return Err(EngineFailure {
+                    kind: FailureKind::Crash,
+                    message: "first attempts crash".into(),
+                    output: None,
+                });
+            }
+            Ok(Outcome {
+                answer: crate::eval::Answer {
+                    energy: -1.0,
+                    gradient: None,
+                    hessian: None,
+                },
+                raw_output: String::new(),
+                remedies: vec![],
+                seconds: 0.06,
+            })
+        }
+    }
+
+    #[test]
+    fn staging_runs_beside_the_engines_and_only_engines_hold_slots() {
+        let rt = tokio::runtime::Builder::new_multi_thread()
+            .worker_threads(2)
+            .build()
+            .unwrap();
+        let engine = Arc::new(Phased {
+            staging: AtomicUsize::new(0),
+            running: AtomicUsize::new(0),
+            most_staging: AtomicUsize::new(0),
+            most_running: AtomicUsize::new(0),
+        });
+        let pool = LocalExecutor::new(1).with_retries(1);
+        let job = Job {
+            elements: vec![crate::elements::Element::from_symbol("H").unwrap(); 1],
+            coords: nalgebra::DVector::zeros(3),
+            charge: 0,
+            multiplicity: 2,
+            quantity: crate::eval::Quantity::Energy,
+            threads: 1,
+        };
+        let reports = rt.block_on(pool.run(engine.clone(), vec![job; 4]));
+        for r in &reports {
+            assert!(r.result.is_ok(), "{:?}", r.result);
+            assert_eq!(r.attempts, 2, "the retry went through the pool again");
+            assert_eq!(r.failures.len(), 1);
+        }
+        assert_eq!(
+            engine.most_running.load(Ordering::SeqCst),
+            1,
+            "one slot: never two engine runs at once"
+        );
+        assert!(
+            engine.most_staging.load(Ordering::SeqCst) >= 2,
+            "staging waited for the slot"
+        );
+        assert_eq!(pool.peak_concurrency(), 1);
+    }
 }

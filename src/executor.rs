@@ -511,6 +511,20 @@ mod tests {
     }
 
     #[test]
+    fn a_task_weight_reaches_the_pool_through_nested_calls() {
+        rt().block_on(async {
+            assert_eq!(current_weight(), 0, "no weight outside with_weight");
+            let seen = with_weight(7, async {
+                // As the pool sees it: inside the boxed future the driver awaits.
+                let inner: BoxFuture<'_, u64> = Box::pin(async { current_weight() });
+                inner.await
+            })
+            .await;
+            assert_eq!(seen, 7);
+        });
+    }
+
+    #[test]
     fn a_waiter_dropped_after_the_hand_over_returns_the_slot() {
         rt().block_on(async {
             let slots = Arc::new(Slots::new(1));

@@ -119,7 +119,8 @@ impl Finished {
         if let Some(t) = self.scratch.take() {
             let _ = std::fs::write(t.path().join("stdout.txt"), &self.stdout);
             let _ = std::fs::write(t.path().join("stderr.txt"), &self.stderr);
-            let in_memory = memory_scratch_root().is_some_and(|m| t.path().starts_with(m));
+            // Whether /dev/shm is usable now does not matter: the directory is there.
+            let in_memory = t.path().starts_with(MEMORY_ROOT);
             let moved = if in_memory {
                 move_to_disk(t.path())
             } else {
@@ -158,8 +159,11 @@ pub fn memory_scratch_root() -> Option<PathBuf> {
             )
             && libc::access(c"/dev/shm".as_ptr(), libc::W_OK | libc::X_OK) == 0
     };
-    ok.then(|| PathBuf::from("/dev/shm"))
+    ok.then(|| PathBuf::from(MEMORY_ROOT))
 }
+
+/// The RAM-backed directory [`memory_scratch_root`] offers.
+const MEMORY_ROOT: &str = "/dev/shm";
 
 /// A file system of type `f_type` with `free` bytes available is fit for RAM scratch.
 fn memory_fs_usable(f_type: i64, free: u64) -> bool {
